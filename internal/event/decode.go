@@ -1,0 +1,561 @@
+package event
+
+import (
+	"bytes"
+	"fmt"
+	"strconv"
+	"time"
+	"unicode/utf8"
+
+	"github.com/valyala/fastjson"
+)
+
+// Limits bounds the size of an input event. All sizes are in bytes.
+type Limits struct {
+	MaxPayload int // whole payload
+	MaxID      int // id
+	MaxUser    int // user
+	MaxName    int // channel, campaign, action and currency, each
+}
+
+// DefaultLimits returns the documented limits: payload 64 KiB, id 128 bytes,
+// user 256 bytes, channel/campaign/action/currency 128 bytes each.
+func DefaultLimits() Limits {
+	return Limits{MaxPayload: 64 << 10, MaxID: 128, MaxUser: 256, MaxName: 128}
+}
+
+// MaxValue is the largest accepted event value, in currency units.
+const MaxValue = 1e12
+
+// maxMicro is MaxValue in micro-units.
+const maxMicro = int64(MaxValue) * ValueScale
+
+// earliest and latest bound an event's time: the instants that int64
+// nanoseconds since 1970-01-01 UTC can hold, so that every accepted time has an
+// exact Time.UnixNano.
+var (
+	earliest = time.Unix(0, -1<<63).UTC()
+	latest   = time.Unix(0, 1<<63-1).UTC()
+)
+
+// field numbers the JSON fields the decoder reads.
+type field uint8
+
+const (
+	fieldID field = iota
+	fieldUser
+	fieldTime
+	fieldKind
+	fieldChannel
+	fieldCampaign
+	fieldInteraction
+	fieldAction
+	fieldValue
+	fieldCurrency
+	numFields
+)
+
+var fieldNames = [numFields]string{"id", "user", "time", "kind", "channel", "campaign",
+	"interaction", "action", "value", "currency"}
+
+// noField marks "no duplicate seen" in Decoder.duplicate.
+const noField = numFields
+
+// Decoder decodes and validates one JSON event. Not safe for concurrent use
+// (reuses a fastjson.Parser).
+type Decoder struct {
+	lim      Limits
+	currency string
+
+	parser    fastjson.Parser
+	values    [numFields]*fastjson.Value // the known fields of the current payload; nil = absent
+	duplicate field                      // first known field seen twice, or noField
+	strs      []byte                     // the Event's strings, concatenated before the one copy
+	number    []byte                     // raw text of the value field
+}
+
+// NewDecoder returns a decoder that enforces lim and, when currency is not
+// empty, rejects events whose non-empty currency differs from it. currency ""
+// accepts any currency. Limits are taken as given; config.Validate checks them.
+func NewDecoder(lim Limits, currency string) *Decoder {
+	return &Decoder{lim: lim, currency: currency}
+}
+
+// Decode returns the event or a *RejectError (never panics, never another
+// error type). The returned Event owns its strings; b is not retained.
+//
+// Checks run in this order: size, UTF-8, JSON syntax, object shape, duplicate
+// known fields, required id/user/time/kind, id and user limits, time, kind,
+// the kind's own fields, currency. The first failure is returned.
+func (d *Decoder) Decode(b []byte) (Event, error) {
+	if len(b) > d.lim.MaxPayload {
+		return Event{}, reject(ReasonTooLarge, "", fmt.Sprintf("payload is %d bytes, limit is %d", len(b), d.lim.MaxPayload))
+	}
+	if !utf8.Valid(b) {
+		return Event{}, reject(ReasonBadJSON, "", "payload is not valid utf-8")
+	}
+	// fastjson.Parser is lenient (NaN, leading zeros, raw control characters
+	// and unknown escapes pass); ValidateBytes holds the payload to RFC 8259.
+	if fastjson.ValidateBytes(b) != nil {
+		return Event{}, reject(ReasonBadJSON, "", "payload is not valid json")
+	}
+	if bytes.IndexByte(b, '\\') >= 0 && !surrogatesPaired(b) {
+		return Event{}, reject(ReasonBadJSON, "", "payload holds an unpaired utf-16 surrogate escape")
+	}
+	root, err := d.parser.ParseBytes(b)
+	if err != nil {
+		return Event{}, reject(ReasonBadJSON, "", "payload is not valid json")
+	}
+	obj, err := root.Object()
+	if err != nil {
+		return Event{}, reject(ReasonBadJSON, "", "payload is a json "+typeName(root)+", not an object")
+	}
+
+	d.values = [numFields]*fastjson.Value{}
+	d.duplicate = noField
+	obj.Visit(d.collect)
+	if d.duplicate != noField {
+		return Event{}, rejectField(ReasonBadField, d.duplicate, "appears more than once")
+	}
+	return d.event()
+}
+
+// collect records the known fields of one object member.
+func (d *Decoder) collect(key []byte, v *fastjson.Value) {
+	var f field
+	switch string(key) {
+	case "id":
+		f = fieldID
+	case "user":
+		f = fieldUser
+	case "time":
+		f = fieldTime
+	case "kind":
+		f = fieldKind
+	case "channel":
+		f = fieldChannel
+	case "campaign":
+		f = fieldCampaign
+	case "interaction":
+		f = fieldInteraction
+	case "action":
+		f = fieldAction
+	case "value":
+		f = fieldValue
+	case "currency":
+		f = fieldCurrency
+	default:
+		return
+	}
+	if d.values[f] != nil {
+		if d.duplicate == noField {
+			d.duplicate = f
+		}
+		return
+	}
+	d.values[f] = v
+}
+
+// event validates the collected fields and builds the Event.
+func (d *Decoder) event() (Event, error) {
+	var (
+		raw [numFields][]byte // validated string fields, pointing into the parser's memory
+		rej *RejectError
+	)
+	for _, f := range [...]field{fieldID, fieldUser, fieldTime, fieldKind} {
+		if raw[f], rej = d.requiredString(f); rej != nil {
+			return Event{}, rej
+		}
+	}
+	if rej = checkName(fieldID, raw[fieldID], d.lim.MaxID); rej != nil {
+		return Event{}, rej
+	}
+	if rej = checkName(fieldUser, raw[fieldUser], d.lim.MaxUser); rej != nil {
+		return Event{}, rej
+	}
+	at, rej := parseTime(raw[fieldTime])
+	if rej != nil {
+		return Event{}, rej
+	}
+
+	ev := Event{Time: at}
+	switch string(raw[fieldKind]) {
+	case "touch":
+		ev.Kind = Touch
+		if raw[fieldChannel], rej = d.requiredString(fieldChannel); rej != nil {
+			return Event{}, rej
+		}
+		if rej = checkName(fieldChannel, raw[fieldChannel], d.lim.MaxName); rej != nil {
+			return Event{}, rej
+		}
+		if raw[fieldCampaign], rej = d.optionalString(fieldCampaign); rej != nil {
+			return Event{}, rej
+		}
+		if rej = checkName(fieldCampaign, raw[fieldCampaign], d.lim.MaxName); rej != nil {
+			return Event{}, rej
+		}
+		interaction, rej := d.optionalString(fieldInteraction)
+		if rej != nil {
+			return Event{}, rej
+		}
+		switch string(interaction) {
+		case "", "click":
+			ev.Interaction = Click
+		case "view":
+			ev.Interaction = View
+		default:
+			return Event{}, rejectField(ReasonBadKind, fieldInteraction, `must be "click" or "view"`)
+		}
+	case "action":
+		ev.Kind = Action
+		if raw[fieldAction], rej = d.requiredString(fieldAction); rej != nil {
+			return Event{}, rej
+		}
+		if rej = checkName(fieldAction, raw[fieldAction], d.lim.MaxName); rej != nil {
+			return Event{}, rej
+		}
+		if ev.Value, ev.HasValue, rej = d.value(); rej != nil {
+			return Event{}, rej
+		}
+	default:
+		return Event{}, rejectField(ReasonBadKind, fieldKind, `must be "touch" or "action"`)
+	}
+
+	if raw[fieldCurrency], rej = d.optionalString(fieldCurrency); rej != nil {
+		return Event{}, rej
+	}
+	if rej = checkName(fieldCurrency, raw[fieldCurrency], d.lim.MaxName); rej != nil {
+		return Event{}, rej
+	}
+	sameCurrency := len(raw[fieldCurrency]) > 0 && string(raw[fieldCurrency]) == d.currency
+	if d.currency != "" && len(raw[fieldCurrency]) > 0 && !sameCurrency {
+		return Event{}, rejectField(ReasonCurrency, fieldCurrency,
+			fmt.Sprintf("is %q, the configured currency is %q", raw[fieldCurrency], d.currency))
+	}
+
+	// One allocation holds every string of the event: fastjson reuses its
+	// memory on the next parse, so the bytes must be copied anyway.
+	d.strs = d.strs[:0]
+	for _, f := range [...]field{fieldID, fieldUser, fieldChannel, fieldCampaign, fieldAction} {
+		d.strs = append(d.strs, raw[f]...)
+	}
+	if !sameCurrency {
+		d.strs = append(d.strs, raw[fieldCurrency]...)
+	}
+	all := string(d.strs)
+	next := func(f field) string {
+		s := all[:len(raw[f])]
+		all = all[len(raw[f]):]
+		return s
+	}
+	ev.ID = next(fieldID)
+	ev.User = next(fieldUser)
+	ev.Channel = next(fieldChannel)
+	ev.Campaign = next(fieldCampaign)
+	ev.Action = next(fieldAction)
+	if sameCurrency {
+		ev.Currency = d.currency
+	} else {
+		ev.Currency = next(fieldCurrency)
+	}
+	return ev, nil
+}
+
+// requiredString returns the bytes of a required string field: absent, null
+// or "" is missing_field, another JSON type is bad_field.
+func (d *Decoder) requiredString(f field) ([]byte, *RejectError) {
+	v := d.values[f]
+	if v == nil {
+		return nil, rejectField(ReasonMissingField, f, "is absent")
+	}
+	switch v.Type() {
+	case fastjson.TypeNull:
+		return nil, rejectField(ReasonMissingField, f, "is null")
+	case fastjson.TypeString:
+	default:
+		return nil, rejectField(ReasonBadField, f, "must be a string, got "+typeName(v))
+	}
+	s, _ := v.StringBytes() // cannot fail: the type is string
+	if len(s) == 0 {
+		return nil, rejectField(ReasonMissingField, f, "is empty")
+	}
+	return s, nil
+}
+
+// optionalString returns the bytes of an optional string field; absent or
+// null gives nil, another JSON type is bad_field.
+func (d *Decoder) optionalString(f field) ([]byte, *RejectError) {
+	v := d.values[f]
+	if v == nil {
+		return nil, nil
+	}
+	switch v.Type() {
+	case fastjson.TypeNull:
+		return nil, nil
+	case fastjson.TypeString:
+		s, _ := v.StringBytes() // cannot fail: the type is string
+		return s, nil
+	}
+	return nil, rejectField(ReasonBadField, f, "must be a string, got "+typeName(v))
+}
+
+// value reads the optional value field of an action in micro-units.
+func (d *Decoder) value() (micro int64, has bool, rej *RejectError) {
+	v := d.values[fieldValue]
+	if v == nil {
+		return 0, false, nil
+	}
+	switch v.Type() {
+	case fastjson.TypeNull:
+		return 0, false, nil
+	case fastjson.TypeNumber:
+	default:
+		return 0, false, rejectField(ReasonBadField, fieldValue, "must be a number, got "+typeName(v))
+	}
+	d.number = v.MarshalTo(d.number[:0]) // a number marshals as its raw text
+	micro, ok := microUnits(d.number)
+	if !ok {
+		return 0, false, rejectField(ReasonBadValue, fieldValue, "must be a number from 0 to 1e12")
+	}
+	return micro, true, nil
+}
+
+// checkName enforces a string field's length limit and bans control
+// characters (C0 and DEL): the store uses 0x00 and 0x1f as separators.
+func checkName(f field, s []byte, limit int) *RejectError {
+	if len(s) > limit {
+		return rejectField(ReasonBadField, f, fmt.Sprintf("is %d bytes, limit is %d", len(s), limit))
+	}
+	for _, c := range s {
+		if c < 0x20 || c == 0x7f {
+			return rejectField(ReasonBadField, f, fmt.Sprintf("holds control character 0x%02x", c))
+		}
+	}
+	return nil
+}
+
+// parseTime parses an RFC 3339 time with a zone (Z or an offset) and returns
+// it in UTC.
+func parseTime(s []byte) (time.Time, *RejectError) {
+	if !rfc3339Shape(s) {
+		return time.Time{}, rejectField(ReasonBadTime, fieldTime, "is not an rfc 3339 time with a zone")
+	}
+	// ParseInLocation with UTC never consults the machine's local zone.
+	t, err := time.ParseInLocation(time.RFC3339Nano, string(s), time.UTC)
+	if err != nil {
+		return time.Time{}, rejectField(ReasonBadTime, fieldTime, "is not an rfc 3339 time with a zone")
+	}
+	t = t.UTC()
+	if t.Before(earliest) || t.After(latest) {
+		return time.Time{}, rejectField(ReasonBadTime, fieldTime, "is outside 1677-09-21 to 2262-04-11 (int64 unix nanoseconds)")
+	}
+	return t, nil
+}
+
+// rfc3339Shape reports whether s has the shape of an RFC 3339 date-time
+// (section 5.6): "2006-01-02T15:04:05", an optional "." and digits, then "Z"
+// or "+hh:mm"/"-hh:mm" with hh ≤ 23 and mm ≤ 59. time.Parse alone also takes
+// a comma before the fraction, one-digit hours and offsets up to 24:00;
+// calendar ranges (month 1-12, day of month, hour, minute, second) are left
+// to time.Parse. Like time.Parse, the T and Z must be upper case.
+func rfc3339Shape(s []byte) bool {
+	const date = "dddd-dd-ddTdd:dd:dd"
+	if len(s) < len(date)+1 {
+		return false
+	}
+	for i := 0; i < len(date); i++ {
+		if date[i] == 'd' {
+			if s[i] < '0' || s[i] > '9' {
+				return false
+			}
+		} else if s[i] != date[i] {
+			return false
+		}
+	}
+	s = s[len(date):]
+	if s[0] == '.' {
+		n := 1
+		for n < len(s) && s[n] >= '0' && s[n] <= '9' {
+			n++
+		}
+		if n == 1 {
+			return false
+		}
+		s = s[n:]
+	}
+	if len(s) == 1 {
+		return s[0] == 'Z'
+	}
+	if len(s) != len("+07:00") || (s[0] != '+' && s[0] != '-') || s[3] != ':' {
+		return false
+	}
+	for _, i := range [...]int{1, 2, 4, 5} {
+		if s[i] < '0' || s[i] > '9' {
+			return false
+		}
+	}
+	hh := int(s[1]-'0')*10 + int(s[2]-'0')
+	mm := int(s[4]-'0')*10 + int(s[5]-'0')
+	return hh <= 23 && mm <= 59
+}
+
+// microUnits converts the text of a JSON number (RFC 8259 grammar, already
+// validated) to micro-units, exactly from its decimal digits, rounding half
+// away from zero at the seventh decimal. This equals
+// int64(math.Round(v*1e6)) for the float64 v of the text wherever float64
+// holds enough digits, and stays exact where it does not (values above about
+// 4.5e9 with six decimals). ok is false for a value below 0 or above
+// MaxValue; negative zero is 0.
+func microUnits(num []byte) (micro int64, ok bool) {
+	negative := num[0] == '-'
+	if negative {
+		num = num[1:]
+	}
+	// num = intPart [. fracPart] [e|E [sign] exp]
+	end := len(num)
+	expStart := bytes.IndexAny(num, "eE")
+	if expStart >= 0 {
+		end = expStart
+	}
+	mantissa := num[:end]
+	intPart, fracPart := mantissa, []byte(nil)
+	if dot := bytes.IndexByte(mantissa, '.'); dot >= 0 {
+		intPart, fracPart = mantissa[:dot], mantissa[dot+1:]
+	}
+	digit := func(k int) byte { // k-th digit of intPart ++ fracPart
+		if k < len(intPart) {
+			return intPart[k]
+		}
+		return fracPart[k-len(intPart)]
+	}
+	count := len(intPart) + len(fracPart)
+	lead := 0
+	for lead < count && digit(lead) == '0' {
+		lead++
+	}
+	if lead == count {
+		return 0, true // zero, whatever its sign or exponent
+	}
+	if negative {
+		return 0, false
+	}
+
+	exp := 0
+	if expStart >= 0 {
+		e := num[expStart+1:]
+		expNegative := e[0] == '-'
+		if e[0] == '-' || e[0] == '+' {
+			e = e[1:]
+		}
+		for _, c := range e {
+			if exp < 1e8 { // saturate: beyond this the answer no longer changes
+				exp = exp*10 + int(c-'0')
+			}
+		}
+		if expNegative {
+			exp = -exp
+		}
+	}
+	// The value is 0.D × 10^point, D the significant digits digit(lead..).
+	point := len(intPart) - lead + exp
+	const maxPoint = 13 // 10^12 has 13 integer digits
+	switch {
+	case point > maxPoint:
+		return 0, false
+	case point == maxPoint: // only 1e12 itself fits
+		if digit(lead) != '1' {
+			return 0, false
+		}
+		for k := lead + 1; k < count; k++ {
+			if digit(k) != '0' {
+				return 0, false
+			}
+		}
+		return maxMicro, true
+	}
+	n := point + 6 // digits left of the micro-unit point
+	for k := 0; k < n; k++ {
+		micro *= 10
+		if lead+k < count {
+			micro += int64(digit(lead+k) - '0')
+		}
+	}
+	if n >= 0 && lead+n < count && digit(lead+n) >= '5' {
+		micro++
+	}
+	return micro, true
+}
+
+// surrogatesPaired reports whether every \u escape of a UTF-16 surrogate in b
+// is a high surrogate directly followed by an escaped low surrogate. b must be
+// valid JSON, so every backslash starts an escape inside a string.
+func surrogatesPaired(b []byte) bool {
+	for {
+		i := bytes.IndexByte(b, '\\')
+		if i < 0 {
+			return true
+		}
+		b = b[i:]
+		if len(b) < 2 {
+			return false
+		}
+		if b[1] != 'u' {
+			b = b[2:]
+			continue
+		}
+		r := hex4(b[2:])
+		switch {
+		case r < 0:
+			return false
+		case r >= 0xd800 && r < 0xdc00:
+			if len(b) < 12 || b[6] != '\\' || b[7] != 'u' {
+				return false
+			}
+			if low := hex4(b[8:]); low < 0xdc00 || low > 0xdfff {
+				return false
+			}
+			b = b[12:]
+		case r >= 0xdc00 && r <= 0xdfff:
+			return false
+		default:
+			b = b[6:]
+		}
+	}
+}
+
+// hex4 parses the four hex digits at the start of b, or returns -1.
+func hex4(b []byte) int {
+	if len(b) < 4 {
+		return -1
+	}
+	n, err := strconv.ParseUint(string(b[:4]), 16, 16)
+	if err != nil {
+		return -1
+	}
+	return int(n)
+}
+
+// typeName names a JSON value's type for messages.
+func typeName(v *fastjson.Value) string {
+	switch v.Type() {
+	case fastjson.TypeTrue, fastjson.TypeFalse:
+		return "boolean"
+	case fastjson.TypeObject:
+		return "object"
+	case fastjson.TypeArray:
+		return "array"
+	case fastjson.TypeString:
+		return "string"
+	case fastjson.TypeNumber:
+		return "number"
+	}
+	return "null"
+}
+
+func reject(r Reason, field, msg string) *RejectError {
+	return &RejectError{Reason: r, Field: field, Msg: msg}
+}
+
+func rejectField(r Reason, f field, msg string) *RejectError {
+	return &RejectError{Reason: r, Field: fieldNames[f], Msg: msg}
+}

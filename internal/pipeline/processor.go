@@ -1,0 +1,425 @@
+package pipeline
+
+import (
+	"context"
+	"encoding/binary"
+	"errors"
+	"fmt"
+	"log/slog"
+	"sort"
+	"time"
+
+	"github.com/cespare/xxhash/v2"
+
+	"github.com/touchledger/touchledger/internal/event"
+	"github.com/touchledger/touchledger/internal/sessionize"
+	"github.com/touchledger/touchledger/internal/state"
+	"github.com/touchledger/touchledger/internal/tally"
+)
+
+// RejectSink keeps inputs that were not accepted, with their reason.
+type RejectSink interface {
+	// Reset discards everything recorded after mark (a value Sync returned
+	// earlier and that was committed); 0 means from the start.
+	Reset(mark int64) error
+	// Reject records one input.
+	Reject(pos uint64, reason event.Reason, msg string, payload []byte) error
+	// Sync makes every record durable and returns a mark for Reset.
+	Sync() (mark int64, err error)
+}
+
+// Config configures a Processor.
+type Config struct {
+	Tracker        sessionize.Params
+	Lateness       time.Duration
+	Currency       string
+	Limits         event.Limits
+	CacheUsers     int           // user states kept in memory (bounded; at most ~2× between commits)
+	CommitEvents   int           // commit after this many inputs
+	CommitInterval time.Duration // or after this much wall time, whichever comes first
+}
+
+// Validate checks the configuration.
+func (c Config) Validate() error {
+	if err := c.Tracker.Validate(); err != nil {
+		return err
+	}
+	switch {
+	case c.Lateness < 0:
+		return errors.New("lateness must not be negative")
+	case c.CacheUsers <= 0:
+		return errors.New("user cache size must be positive")
+	case c.CommitEvents <= 0:
+		return errors.New("commit size must be positive")
+	case c.CommitInterval <= 0:
+		return errors.New("commit interval must be positive")
+	}
+	return nil
+}
+
+type cached struct {
+	u     sessionize.UserState
+	dirty bool
+}
+
+// Processor turns input payloads into committed state: decode and validate,
+// reorder by event time, de-duplicate, apply to user state, and commit
+// counters, user states and the input position together. Not safe for
+// concurrent use; one Processor per store.
+type Processor struct {
+	cfg     Config
+	store   *state.Store
+	log     *slog.Logger
+	rejects RejectSink
+
+	dec     *event.Decoder
+	tracker *sessionize.Tracker
+	reorder *sessionize.Reorder
+	batch   *tally.Batch
+
+	cur, prev map[string]*cached
+	reader    *state.Reader
+
+	source      string
+	ckpt        Checkpoint
+	sinceCommit int
+	lastCommit  time.Time
+	inflight    chan error
+	userLimit   int
+	ndirty      int
+}
+
+const (
+	metaRejects = state.MetaRejects
+	metaOpen    = state.MetaOpen
+)
+
+// New returns a processor over an open store.
+func New(store *state.Store, cfg Config, rejects RejectSink, log *slog.Logger) (*Processor, error) {
+	if err := cfg.Validate(); err != nil {
+		return nil, fmt.Errorf("pipeline: %w", err)
+	}
+	if log == nil {
+		log = slog.New(slog.DiscardHandler)
+	}
+	tr, err := sessionize.NewTracker(cfg.Tracker)
+	if err != nil {
+		return nil, err
+	}
+	res := store.Resolutions()
+	p := &Processor{
+		cfg: cfg, store: store, log: log, rejects: rejects,
+		dec:     event.NewDecoder(cfg.Limits, cfg.Currency),
+		tracker: tr,
+		reorder: sessionize.NewReorder(int64(cfg.Lateness)),
+		batch:   tally.NewBatch(int64(res[0].Step / time.Second)),
+		cur:     make(map[string]*cached),
+		prev:    make(map[string]*cached),
+		reader:  store.NewReader(),
+	}
+	// Size commits to fit one Badger transaction with a wide margin:
+	// a user state is a few hundred bytes; counters are few per commit.
+	maxBytes, maxEntries := store.Limits()
+	p.userLimit = int(min(maxEntries/3, maxBytes/2/512))
+	if maxSeen, floor, ok, err := p.reader.Watermark(); err != nil {
+		return nil, err
+	} else if ok {
+		p.reorder.Restore(maxSeen, floor)
+	}
+	mark, err := p.reader.Meta(metaRejects)
+	if err != nil {
+		return nil, err
+	}
+	var m int64
+	if mark != nil {
+		m, _ = binary.Varint(mark)
+	}
+	if rejects != nil {
+		if err := rejects.Reset(m); err != nil {
+			return nil, fmt.Errorf("pipeline: reset rejects to committed mark: %w", err)
+		}
+	}
+	return p, nil
+}
+
+// ErrInterrupted is returned by Begin when another source was interrupted
+// with events still buffered.
+var ErrInterrupted = errors.New("pipeline: another input was interrupted with events still buffered")
+
+// Begin starts (or resumes) reading a source and returns its committed
+// checkpoint. Positions below cp.Next were read before: the caller skips them,
+// except those in cp.Pending, which it passes to Readmit; then it passes
+// every later position to Offer.
+func (p *Processor) Begin(source string) (Checkpoint, error) {
+	open, err := p.reader.Meta(metaOpen)
+	if err != nil {
+		return Checkpoint{}, err
+	}
+	if len(open) > 0 && string(open) != source {
+		return Checkpoint{}, fmt.Errorf("%w: finish %q first by running it again", ErrInterrupted, open)
+	}
+	b, err := p.reader.Checkpoint(source)
+	if err != nil {
+		return Checkpoint{}, err
+	}
+	p.source = source
+	p.ckpt = Checkpoint{Counts: Counts{Rejected: map[event.Reason]uint64{}}}
+	if b != nil {
+		if err := p.ckpt.UnmarshalBinary(b); err != nil {
+			return Checkpoint{}, fmt.Errorf("pipeline: source %q: %w", source, err)
+		}
+	}
+	p.lastCommit = time.Now()
+	cp := p.ckpt
+	cp.Pending = append([]uint64(nil), p.ckpt.Pending...)
+	p.ckpt.Done = false
+	return cp, nil
+}
+
+// Counts returns the source's counters so far (committed or not).
+func (p *Processor) Counts() Counts { return p.ckpt.Counts.clone() }
+
+// Watermark returns the current watermark (Unix ns) and the largest event
+// time seen.
+func (p *Processor) Watermark() (wm, maxSeen int64) {
+	return p.reorder.Watermark(), p.reorder.MaxSeen()
+}
+
+// Readmit re-reads an event that was buffered at the last commit. It was
+// validated then, so it decodes again.
+func (p *Processor) Readmit(ctx context.Context, pos uint64, payload []byte) error {
+	e, err := p.dec.Decode(payload)
+	if err != nil {
+		return fmt.Errorf("pipeline: buffered input %d no longer decodes (input changed since it was read?): %w", pos, err)
+	}
+	p.reorder.Readmit(e, pos)
+	return nil
+}
+
+// Offer processes one new input at position pos (positions increase).
+func (p *Processor) Offer(ctx context.Context, pos uint64, payload []byte) error {
+	if pos+1 > p.ckpt.Next {
+		p.ckpt.Next = pos + 1
+	}
+	e, err := p.dec.Decode(payload)
+	if err != nil {
+		var re *event.RejectError
+		if !errors.As(err, &re) {
+			return fmt.Errorf("pipeline: decode input %d: %w", pos, err)
+		}
+		if err := p.reject(pos, re.Reason, re.Error(), payload); err != nil {
+			return err
+		}
+	} else if t := e.Time.UnixNano(); p.reorder.Late(t) {
+		// A late event may still be a plain duplicate of one we applied.
+		c, err := p.user(e.User)
+		if err != nil {
+			return err
+		}
+		if c.u.HasSeen(xxhash.Sum64String(e.ID)) {
+			p.ckpt.Counts.Duplicate++
+		} else {
+			p.ckpt.Counts.Late++
+			msg := fmt.Sprintf("late: event time %s is older than the watermark %s",
+				e.Time.Format(time.RFC3339Nano), time.Unix(0, p.reorder.Watermark()).UTC().Format(time.RFC3339Nano))
+			if err := p.rejectRecord(pos, event.ReasonLate, msg, payload); err != nil {
+				return err
+			}
+		}
+	} else {
+		p.reorder.Push(e, pos)
+		if err := p.release(); err != nil {
+			return err
+		}
+	}
+	p.sinceCommit++
+	if p.needCommit() {
+		return p.commit(ctx, false)
+	}
+	return nil
+}
+
+func (p *Processor) reject(pos uint64, r event.Reason, msg string, payload []byte) error {
+	p.ckpt.Counts.Rejected[r]++
+	return p.rejectRecord(pos, r, msg, payload)
+}
+
+func (p *Processor) rejectRecord(pos uint64, r event.Reason, msg string, payload []byte) error {
+	if p.rejects == nil {
+		return nil
+	}
+	if err := p.rejects.Reject(pos, r, msg, payload); err != nil {
+		return fmt.Errorf("pipeline: record reject: %w", err)
+	}
+	return nil
+}
+
+func (p *Processor) release() error {
+	var ferr error
+	p.reorder.Release(func(it sessionize.Item) {
+		if ferr == nil {
+			ferr = p.apply(&it.Event)
+		}
+	})
+	return ferr
+}
+
+func (p *Processor) apply(e *event.Event) error {
+	c, err := p.user(e.User)
+	if err != nil {
+		return err
+	}
+	if p.tracker.Apply(&c.u, e, xxhash.Sum64String(e.ID), p.batch) {
+		p.ckpt.Counts.Accepted++
+		if !c.dirty {
+			c.dirty = true
+			p.ndirty++
+		}
+	} else {
+		p.ckpt.Counts.Duplicate++
+	}
+	return nil
+}
+
+// user returns the cached state of a user, loading it from the store on a
+// miss. Cache: two generations; a hit in the older one moves the entry to the
+// newer one; at a commit the older generation is dropped when the newer one
+// is over half the bound. Every dirty entry is in the newer generation.
+func (p *Processor) user(id string) (*cached, error) {
+	if c := p.cur[id]; c != nil {
+		return c, nil
+	}
+	if c := p.prev[id]; c != nil {
+		delete(p.prev, id)
+		p.cur[id] = c
+		return c, nil
+	}
+	c := &cached{}
+	b, err := p.reader.User(id)
+	if err != nil {
+		return nil, fmt.Errorf("pipeline: load user state: %w", err)
+	}
+	if b != nil {
+		if err := c.u.UnmarshalBinary(b); err != nil {
+			return nil, fmt.Errorf("pipeline: user state: %w", err)
+		}
+	}
+	p.cur[id] = c
+	return c, nil
+}
+
+func (p *Processor) needCommit() bool {
+	if p.sinceCommit >= p.cfg.CommitEvents || p.ndirty >= p.userLimit || p.batch.Len() >= p.userLimit {
+		return true
+	}
+	if p.sinceCommit&1023 == 0 && time.Since(p.lastCommit) >= p.cfg.CommitInterval {
+		return true
+	}
+	return false
+}
+
+// Finish ends the source. With drain, every buffered event is released (the
+// input is complete) and the source is marked done. It commits and waits.
+func (p *Processor) Finish(ctx context.Context, drain bool) error {
+	if drain {
+		var ferr error
+		p.reorder.Drain(func(it sessionize.Item) {
+			if ferr == nil {
+				ferr = p.apply(&it.Event)
+			}
+		})
+		if ferr != nil {
+			return ferr
+		}
+		p.ckpt.Done = true
+	}
+	if err := p.commit(ctx, true); err != nil {
+		return err
+	}
+	return nil
+}
+
+// Close waits for an in-flight commit and releases the snapshot.
+func (p *Processor) Close() error {
+	var err error
+	if p.inflight != nil {
+		err = <-p.inflight
+		p.inflight = nil
+	}
+	p.reader.Discard()
+	return err
+}
+
+// commit hands the current changes to a background commit. At most one
+// commit is in flight: the next waits for it, so a failed commit stops the
+// processor before anything later is committed.
+func (p *Processor) commit(ctx context.Context, wait bool) error {
+	if p.inflight != nil {
+		if err := <-p.inflight; err != nil {
+			p.inflight = nil
+			return err
+		}
+		p.inflight = nil
+		// Everything committed so far is visible to a new snapshot.
+		p.reader.Discard()
+		p.reader = p.store.NewReader()
+	}
+	c := &state.Commit{
+		Users:       make(map[string][]byte),
+		Counters:    p.batch,
+		Checkpoints: map[string][]byte{},
+		Meta:        map[string][]byte{},
+	}
+	for id, e := range p.cur {
+		if e.dirty {
+			c.Users[id] = e.u.AppendBinary(nil)
+			e.dirty = false
+		}
+	}
+	p.batch = tally.NewBatch(p.batch.Step())
+	cp := p.ckpt
+	cp.Pending = p.reorder.Positions(nil)
+	sort.Slice(cp.Pending, func(i, j int) bool { return cp.Pending[i] < cp.Pending[j] })
+	cp.Counts = p.ckpt.Counts.clone()
+	cb, _ := cp.MarshalBinary()
+	if p.source != "" {
+		c.Checkpoints[p.source] = cb
+	}
+	if len(cp.Pending) > 0 {
+		c.Meta[metaOpen] = []byte(p.source)
+	} else {
+		c.Meta[metaOpen] = []byte{}
+	}
+	c.Meta[state.MetaWatermark] = state.EncodeWatermark(p.reorder.MaxSeen(), p.reorder.Floor())
+	if p.rejects != nil {
+		mark, err := p.rejects.Sync()
+		if err != nil {
+			return fmt.Errorf("pipeline: sync rejects: %w", err)
+		}
+		c.Meta[metaRejects] = binary.AppendVarint(nil, mark)
+	}
+	if len(p.cur) >= p.cfg.CacheUsers/2 {
+		p.prev = p.cur
+		p.cur = make(map[string]*cached, len(p.prev))
+	}
+	p.sinceCommit = 0
+	p.ndirty = 0
+	p.lastCommit = time.Now()
+	ch := make(chan error, 1)
+	p.inflight = ch
+	go func() {
+		st, err := p.store.Commit(ctx, c)
+		if err == nil {
+			p.log.Debug("committed", "entries", st.Entries, "bytes", st.Bytes, "took", st.Took)
+		}
+		ch <- err
+	}()
+	if wait {
+		err := <-ch
+		p.inflight = nil
+		p.reader.Discard()
+		p.reader = p.store.NewReader()
+		return err
+	}
+	return nil
+}

@@ -1,0 +1,194 @@
+package pipeline
+
+import (
+	"bufio"
+	"bytes"
+	"compress/gzip"
+	"context"
+	"encoding/base64"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"os"
+	"unicode/utf8"
+
+	"github.com/touchledger/touchledger/internal/event"
+)
+
+// Replay feeds a JSON-lines input to p as source, resuming from the source's
+// checkpoint, and finishes it (draining the reorder buffer). Positions are
+// line numbers starting at 1. Blank lines are not events and are skipped. A
+// line longer than maxPayload is cut to maxPayload+1 bytes before it is
+// offered, so it is rejected as too_large without holding it in memory.
+// Input compressed with gzip is recognised by its magic bytes.
+func Replay(ctx context.Context, p *Processor, source string, r io.Reader, maxPayload int) (Checkpoint, error) {
+	cp, err := p.Begin(source)
+	if err != nil {
+		return Checkpoint{}, err
+	}
+	br := bufio.NewReaderSize(r, 1<<20)
+	if magic, _ := br.Peek(2); len(magic) == 2 && magic[0] == 0x1f && magic[1] == 0x8b {
+		zr, err := gzip.NewReader(br)
+		if err != nil {
+			return Checkpoint{}, fmt.Errorf("replay %s: %w", source, err)
+		}
+		defer zr.Close()
+		br = bufio.NewReaderSize(zr, 1<<20)
+	}
+	pending := make(map[uint64]bool, len(cp.Pending))
+	for _, pos := range cp.Pending {
+		pending[pos] = true
+	}
+	var (
+		pos  uint64
+		line []byte
+	)
+	for {
+		if pos&4095 == 0 {
+			if err := ctx.Err(); err != nil {
+				return Checkpoint{}, err
+			}
+		}
+		line, err = readLine(br, line[:0], maxPayload)
+		if len(line) == 0 && err != nil {
+			if errors.Is(err, io.EOF) {
+				break
+			}
+			return Checkpoint{}, fmt.Errorf("replay %s: line %d: %w", source, pos+1, err)
+		}
+		pos++
+		payload := bytes.TrimSpace(line)
+		if len(payload) == 0 {
+			continue
+		}
+		if pos < cp.Next {
+			if pending[pos] {
+				if err := p.Readmit(ctx, pos, payload); err != nil {
+					return Checkpoint{}, err
+				}
+			}
+			continue
+		}
+		if err := p.Offer(ctx, pos, payload); err != nil {
+			return Checkpoint{}, err
+		}
+		if errors.Is(err, io.EOF) {
+			break
+		}
+	}
+	if err := p.Finish(ctx, true); err != nil {
+		return Checkpoint{}, err
+	}
+	return p.ckpt, nil
+}
+
+// readLine reads one line without its newline into dst, keeping at most
+// limit+1 bytes of it.
+func readLine(br *bufio.Reader, dst []byte, limit int) ([]byte, error) {
+	for {
+		chunk, err := br.ReadSlice('\n')
+		if room := limit + 1 - len(dst); room > 0 {
+			if len(chunk) > room {
+				dst = append(dst, chunk[:room]...)
+			} else {
+				dst = append(dst, chunk...)
+			}
+		}
+		if errors.Is(err, bufio.ErrBufferFull) {
+			continue
+		}
+		if n := len(dst); n > 0 && dst[n-1] == '\n' {
+			dst = dst[:n-1]
+		}
+		return dst, err
+	}
+}
+
+// RejectFile is a RejectSink writing JSON lines:
+//
+//	{"line":12,"reason":"bad_time","error":"…","text":"original line"}
+//
+// with "base64" instead of "text" when the original is not valid UTF-8.
+type RejectFile struct {
+	f   *os.File
+	w   *bufio.Writer
+	off int64
+}
+
+// OpenRejectFile opens (creating) path for appending rejects.
+func OpenRejectFile(path string) (*RejectFile, error) {
+	f, err := os.OpenFile(path, os.O_RDWR|os.O_CREATE, 0o640)
+	if err != nil {
+		return nil, fmt.Errorf("open rejects file: %w", err)
+	}
+	return &RejectFile{f: f, w: bufio.NewWriterSize(f, 64<<10)}, nil
+}
+
+// Reset truncates the file to mark, dropping records written after the last
+// commit (they will be written again when their inputs are read again).
+func (r *RejectFile) Reset(mark int64) error {
+	st, err := r.f.Stat()
+	if err != nil {
+		return err
+	}
+	if st.Size() < mark {
+		return fmt.Errorf("rejects file %s is shorter (%d bytes) than committed (%d bytes): it was changed outside touchledger", r.f.Name(), st.Size(), mark)
+	}
+	if err := r.f.Truncate(mark); err != nil {
+		return err
+	}
+	if _, err := r.f.Seek(mark, io.SeekStart); err != nil {
+		return err
+	}
+	r.off = mark
+	r.w.Reset(r.f)
+	return nil
+}
+
+type rejectRecord struct {
+	Line   uint64       `json:"line"`
+	Reason event.Reason `json:"reason"`
+	Error  string       `json:"error"`
+	Text   *string      `json:"text,omitempty"`
+	Base64 string       `json:"base64,omitempty"`
+}
+
+// Reject appends one record.
+func (r *RejectFile) Reject(pos uint64, reason event.Reason, msg string, payload []byte) error {
+	rec := rejectRecord{Line: pos, Reason: reason, Error: msg}
+	if utf8.Valid(payload) {
+		s := string(payload)
+		rec.Text = &s
+	} else {
+		rec.Base64 = base64.StdEncoding.EncodeToString(payload)
+	}
+	b, err := json.Marshal(rec)
+	if err != nil {
+		return err
+	}
+	b = append(b, '\n')
+	n, err := r.w.Write(b)
+	r.off += int64(n)
+	return err
+}
+
+// Sync flushes and fsyncs, returning the file length.
+func (r *RejectFile) Sync() (int64, error) {
+	if err := r.w.Flush(); err != nil {
+		return 0, err
+	}
+	if err := r.f.Sync(); err != nil {
+		return 0, err
+	}
+	return r.off, nil
+}
+
+// Close flushes and closes the file.
+func (r *RejectFile) Close() error {
+	if err := r.w.Flush(); err != nil {
+		r.f.Close()
+		return err
+	}
+	return r.f.Close()
+}

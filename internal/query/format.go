@@ -1,0 +1,224 @@
+package query
+
+import (
+	"encoding/csv"
+	"encoding/json"
+	"fmt"
+	"io"
+	"strconv"
+	"strings"
+	"text/tabwriter"
+)
+
+// Format names an output format.
+type Format string
+
+const (
+	Table Format = "table"
+	JSON  Format = "json"
+	CSV   Format = "csv"
+)
+
+// ParseFormat checks a --format value.
+func ParseFormat(s string) (Format, error) {
+	switch Format(s) {
+	case "", Table:
+		return Table, nil
+	case JSON, CSV:
+		return Format(s), nil
+	}
+	return "", fmt.Errorf("unknown format %q: use table, json or csv", s)
+}
+
+// WriteJSON writes v as indented JSON.
+func WriteJSON(w io.Writer, v any) error {
+	enc := json.NewEncoder(w)
+	enc.SetIndent("", "  ")
+	return enc.Encode(v)
+}
+
+func f2(x float64) string { return strconv.FormatFloat(x, 'f', 2, 64) }
+func pct(x float64) string { return strconv.FormatFloat(100*x, 'f', 1, 64) + "%" }
+func signed(x float64) string {
+	if x > 0 {
+		return "+" + f2(x)
+	}
+	return f2(x)
+}
+
+// Bar returns a text bar of width cells for a fraction in [0, 1].
+func Bar(frac float64, width int) string {
+	if frac < 0 {
+		frac = 0
+	}
+	if frac > 1 {
+		frac = 1
+	}
+	eighths := int(frac*float64(width)*8 + 0.5)
+	full := eighths / 8
+	var b strings.Builder
+	b.WriteString(strings.Repeat("█", full))
+	if r := eighths % 8; r > 0 {
+		b.WriteRune([]rune("▏▎▍▌▋▊▉")[r-1])
+	}
+	return b.String()
+}
+
+// WriteCredit writes a credit answer. chart adds a bar per row (table only).
+func WriteCredit(w io.Writer, a CreditAnswer, f Format, chart bool) error {
+	switch f {
+	case JSON:
+		return WriteJSON(w, a)
+	case CSV:
+		cw := csv.NewWriter(w)
+		head := []string{"model", "from", "to", "channel"}
+		if a.By == ByCampaign {
+			head = append(head, "campaign")
+		}
+		head = append(head, "conversions", "value", "share")
+		if err := cw.Write(head); err != nil {
+			return err
+		}
+		for _, c := range a.Channels {
+			row := []string{a.Model, a.From, a.To, c.Channel}
+			if a.By == ByCampaign {
+				row = append(row, deref(c.Campaign))
+			}
+			row = append(row, strconv.FormatFloat(c.Conversions, 'f', -1, 64),
+				strconv.FormatFloat(c.Value, 'f', -1, 64), strconv.FormatFloat(c.Share, 'f', -1, 64))
+			if err := cw.Write(row); err != nil {
+				return err
+			}
+		}
+		cw.Flush()
+		return cw.Error()
+	}
+	fmt.Fprintf(w, "credit by %s · model %s · %s to %s", a.By, a.Model, a.From, a.To)
+	if a.Rounded {
+		fmt.Fprint(w, " (widened to bucket edges)")
+	}
+	fmt.Fprintf(w, "\n%d conversions, value %s\n\n", a.Conversions, f2(a.Value))
+	for _, n := range a.Notes {
+		fmt.Fprintf(w, "note: %s\n", n)
+	}
+	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
+	head := "CHANNEL\t"
+	if a.By == ByCampaign {
+		head += "CAMPAIGN\t"
+	}
+	head += "CONVERSIONS\tVALUE\tSHARE\t"
+	if a.Channels != nil && len(a.Channels) > 0 && a.Channels[0].Journeys != nil {
+		head += "JOURNEYS\t"
+	}
+	if chart {
+		head += "\t"
+	}
+	fmt.Fprintln(tw, head)
+	var top float64
+	for _, c := range a.Channels {
+		if c.Share > top {
+			top = c.Share
+		}
+	}
+	for _, c := range a.Channels {
+		row := c.Channel + "\t"
+		if a.By == ByCampaign {
+			row += deref(c.Campaign) + "\t"
+		}
+		row += f2(c.Conversions) + "\t" + f2(c.Value) + "\t" + pct(c.Share) + "\t"
+		if c.Journeys != nil {
+			row += strconv.FormatInt(*c.Journeys, 10) + "\t"
+		}
+		if chart {
+			frac := 0.0
+			if top > 0 {
+				frac = c.Share / top
+			}
+			row += " " + Bar(frac, 30) + "\t"
+		}
+		fmt.Fprintln(tw, row)
+	}
+	if len(a.Channels) == 0 {
+		fmt.Fprintln(tw, "(no conversions in this window)\t")
+	}
+	return tw.Flush()
+}
+
+func deref(s *string) string {
+	if s == nil {
+		return ""
+	}
+	return *s
+}
+
+// WriteShift writes a shift answer.
+func WriteShift(w io.Writer, a ShiftAnswer, f Format, chart bool) error {
+	switch f {
+	case JSON:
+		return WriteJSON(w, a)
+	case CSV:
+		cw := csv.NewWriter(w)
+		if err := cw.Write([]string{"model", "day", "channel", "conversions", "value", "share", "change", "share_change"}); err != nil {
+			return err
+		}
+		for _, d := range a.Days {
+			for _, c := range d.Channels {
+				if err := cw.Write([]string{a.Model, d.Day, c.Channel,
+					strconv.FormatFloat(c.Conversions, 'f', -1, 64), strconv.FormatFloat(c.Value, 'f', -1, 64),
+					strconv.FormatFloat(c.Share, 'f', -1, 64), strconv.FormatFloat(c.Change, 'f', -1, 64),
+					strconv.FormatFloat(c.ShareChange, 'f', -1, 64)}); err != nil {
+					return err
+				}
+			}
+		}
+		cw.Flush()
+		return cw.Error()
+	}
+	fmt.Fprintf(w, "credited conversions per day · model %s · change against the day before\n\n", a.Model)
+	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
+	head := "DAY\tTOTAL\t"
+	for _, c := range a.Channels {
+		head += c + "\t"
+	}
+	fmt.Fprintln(tw, head)
+	for _, d := range a.Days {
+		row := d.Day + "\t" + strconv.FormatInt(d.Conversions, 10) + "\t"
+		for _, c := range d.Channels {
+			row += f2(c.Conversions) + " (" + signed(c.Change) + ")\t"
+		}
+		fmt.Fprintln(tw, row)
+	}
+	if err := tw.Flush(); err != nil {
+		return err
+	}
+	if chart && len(a.Days) > 0 {
+		fmt.Fprintf(w, "\nshare of credit per channel, one bar per day (oldest first)\n")
+		for _, name := range a.Channels {
+			var line strings.Builder
+			for _, d := range a.Days {
+				for _, c := range d.Channels {
+					if c.Channel == name {
+						line.WriteRune(spark(c.Share))
+					}
+				}
+			}
+			fmt.Fprintf(w, "%-20s %s\n", name, line.String())
+		}
+	}
+	return nil
+}
+
+// spark maps a share in [0, 1] to one of eight block heights.
+func spark(x float64) rune {
+	blocks := []rune(" ▁▂▃▄▅▆▇█")
+	i := int(x*8 + 0.5)
+	if i < 0 {
+		i = 0
+	}
+	if i > 8 {
+		i = 8
+	}
+	return blocks[i]
+}
+
+

@@ -1,0 +1,105 @@
+package query
+
+import (
+	"errors"
+	"fmt"
+	"time"
+
+	"github.com/touchledger/touchledger/internal/state"
+	"github.com/touchledger/touchledger/internal/tally"
+)
+
+// Piece is a run of buckets of one resolution: starts in [From, To), Unix s.
+type Piece struct {
+	Res      int
+	From, To int64
+}
+
+// Plan says which buckets answer a window.
+type Plan struct {
+	From, To time.Time // the window actually covered
+	Pieces   []Piece
+	Rounded  bool // the covered window differs from the one asked for
+}
+
+// ErrEmptyWindow is returned for a window that ends before it starts.
+var ErrEmptyWindow = errors.New("the window is empty: --from must be before --to")
+
+// PlanWindow covers [from, to) with as few buckets as possible: the coarsest
+// bucket that fits at each point, finer ones at the edges. A resolution holds
+// buckets starting at or after watermark − retention (retention 0: all). When
+// the edges do not fall on bucket boundaries of a resolution still held
+// there, the window is widened outwards to the nearest boundary and Rounded is
+// set: the answer names the window it covers.
+func PlanWindow(res []state.Resolution, from, to, watermark time.Time) (Plan, error) {
+	if !from.Before(to) {
+		return Plan{}, ErrEmptyWindow
+	}
+	steps := make([]int64, len(res))
+	for i, r := range res {
+		steps[i] = int64(r.Step / time.Second)
+	}
+	wm := watermark.Unix()
+	avail := func(i int, t int64) bool {
+		return res[i].Retention == 0 || t >= wm-int64(res[i].Retention/time.Second)
+	}
+	finestAt := func(t int64) int {
+		for i := range res {
+			if avail(i, tally.FloorDiv(t, steps[i])*steps[i]) {
+				return i
+			}
+		}
+		return len(res) - 1
+	}
+	start := from.Unix() // floor: Time keeps nanoseconds in [0, 1e9)
+	s0 := steps[finestAt(start)]
+	start = tally.FloorDiv(start, s0) * s0
+	end := to.Unix()
+	if to.Nanosecond() != 0 {
+		end++
+	}
+	if e := steps[0]; end%e != 0 {
+		end = (tally.FloorDiv(end, e) + 1) * e
+	}
+	p := Plan{}
+	t := start
+	for t < end {
+		pick := -1
+		for i := len(res) - 1; i >= 0; i-- {
+			if t%steps[i] == 0 && t+steps[i] <= end && avail(i, t) {
+				pick = i
+				break
+			}
+		}
+		if pick < 0 {
+			// The fine buckets needed here have expired: widen to the
+			// finest held resolution.
+			pick = finestAt(t)
+			if t%steps[pick] != 0 {
+				return Plan{}, fmt.Errorf("query: cannot align window at %s", time.Unix(t, 0).UTC())
+			}
+			end = t + steps[pick]
+		}
+		n := len(p.Pieces)
+		if n > 0 && p.Pieces[n-1].Res == pick && p.Pieces[n-1].To == t {
+			p.Pieces[n-1].To = t + steps[pick]
+		} else {
+			p.Pieces = append(p.Pieces, Piece{Res: pick, From: t, To: t + steps[pick]})
+		}
+		t += steps[pick]
+	}
+	p.From, p.To = time.Unix(start, 0).UTC(), time.Unix(end, 0).UTC()
+	p.Rounded = !p.From.Equal(from) || !p.To.Equal(to)
+	return p, nil
+}
+
+// Sum adds family f over the plan's buckets into a new table.
+func Sum(r *state.Reader, p Plan, f tally.Family) (tally.Table, error) {
+	t := make(tally.Table)
+	for _, pc := range p.Pieces {
+		if err := r.Sum(pc.Res, f, pc.From, pc.To, t); err != nil {
+			return nil, err
+		}
+	}
+	return t, nil
+}

@@ -1,0 +1,445 @@
+package state
+
+import (
+	"context"
+	"encoding/binary"
+	"errors"
+	"fmt"
+	"log/slog"
+	"os"
+	"strings"
+	"time"
+
+	"github.com/dgraph-io/badger/v4"
+
+	"github.com/touchledger/touchledger/internal/tally"
+)
+
+// Resolution is one bucket size with its retention (0 = keep forever).
+type Resolution struct {
+	Name      string
+	Step      time.Duration
+	Retention time.Duration
+}
+
+// Options configure a Store.
+type Options struct {
+	Dir           string
+	Resolutions   []Resolution // finest first; each step divides the next
+	MemtableMiB   int          // Badger memtable size (bounds one commit to 15 % of it)
+	BlockCacheMiB int
+	IndexCacheMiB int
+	Logger        *slog.Logger
+}
+
+// DefaultOptions returns options for dir with deliberate, small Badger caches.
+func DefaultOptions(dir string) Options {
+	return Options{
+		Dir: dir,
+		Resolutions: []Resolution{
+			{"5m", 5 * time.Minute, 14 * 24 * time.Hour},
+			{"hour", time.Hour, 90 * 24 * time.Hour},
+			{"day", 24 * time.Hour, 0},
+		},
+		MemtableMiB:   64,
+		BlockCacheMiB: 32,
+		IndexCacheMiB: 16,
+	}
+}
+
+// Validate checks the options.
+func (o Options) Validate() error {
+	if o.Dir == "" {
+		return errors.New("state: data directory is empty")
+	}
+	if len(o.Resolutions) == 0 {
+		return errors.New("state: at least one resolution is needed")
+	}
+	if len(o.Resolutions) > 255 {
+		return errors.New("state: too many resolutions")
+	}
+	for i, r := range o.Resolutions {
+		if r.Step <= 0 || r.Step%time.Second != 0 {
+			return fmt.Errorf("state: resolution %q: step must be a positive whole number of seconds", r.Name)
+		}
+		if r.Retention < 0 {
+			return fmt.Errorf("state: resolution %q: negative retention", r.Name)
+		}
+		if i > 0 {
+			prev := o.Resolutions[i-1]
+			if r.Step <= prev.Step || r.Step%prev.Step != 0 {
+				return fmt.Errorf("state: resolution %q: step %v must be a multiple of %q's %v", r.Name, r.Step, prev.Name, prev.Step)
+			}
+		}
+	}
+	if o.MemtableMiB < 8 || o.BlockCacheMiB < 1 || o.IndexCacheMiB < 1 {
+		return errors.New("state: memtable must be >= 8 MiB and caches >= 1 MiB")
+	}
+	return nil
+}
+
+// Store is an open data directory.
+type Store struct {
+	db  *badger.DB
+	opt Options
+}
+
+// ErrLocked is returned by Open when another process holds the directory.
+var ErrLocked = errors.New("state: data directory is in use by another process (a running worker?); ask the worker instead")
+
+// Open opens (creating if needed) the store in o.Dir.
+func Open(ctx context.Context, o Options) (*Store, error) {
+	if err := o.Validate(); err != nil {
+		return nil, err
+	}
+	if err := os.MkdirAll(o.Dir, 0o750); err != nil {
+		return nil, fmt.Errorf("state: create %s: %w", o.Dir, err)
+	}
+	bo := badger.DefaultOptions(o.Dir).
+		WithMemTableSize(int64(o.MemtableMiB) << 20).
+		WithNumMemtables(2).
+		WithNumLevelZeroTables(4).
+		WithNumLevelZeroTablesStall(10).
+		WithBlockCacheSize(int64(o.BlockCacheMiB) << 20).
+		WithIndexCacheSize(int64(o.IndexCacheMiB) << 20).
+		WithValueLogFileSize(64 << 20).
+		WithNumCompactors(2).
+		WithDetectConflicts(false).
+		WithNumVersionsToKeep(1).
+		WithMetricsEnabled(false).
+		WithLogger(badgerLogger{o.Logger})
+	db, err := badger.Open(bo)
+	if err != nil {
+		if errors.Is(err, badger.ErrTruncateNeeded) {
+			return nil, fmt.Errorf("state: open %s: %w", o.Dir, err)
+		}
+		if isLockErr(err) {
+			return nil, fmt.Errorf("%w (%v)", ErrLocked, err)
+		}
+		return nil, fmt.Errorf("state: open %s: %w", o.Dir, err)
+	}
+	s := &Store{db: db, opt: o}
+	if err := s.checkFormat(); err != nil {
+		db.Close()
+		return nil, err
+	}
+	return s, nil
+}
+
+func isLockErr(err error) bool {
+	return err != nil && (strings.Contains(err.Error(), "Cannot acquire directory lock") ||
+		strings.Contains(err.Error(), "resource temporarily unavailable"))
+}
+
+// Close closes the store.
+func (s *Store) Close() error { return s.db.Close() }
+
+// Resolutions returns the store's resolutions, finest first.
+func (s *Store) Resolutions() []Resolution { return s.opt.Resolutions }
+
+// Limits returns the largest commit Badger accepts: bytes and entries.
+func (s *Store) Limits() (bytes, entries int64) { return s.db.MaxBatchSize(), s.db.MaxBatchCount() }
+
+// DB exposes the Badger handle for maintenance (backup, GC).
+func (s *Store) DB() *badger.DB { return s.db }
+
+const formatVersion = 1
+
+// checkFormat records the format version and resolutions on first use and
+// refuses a directory written with other resolutions (its buckets would not
+// line up).
+func (s *Store) checkFormat() error {
+	want := encodeResolutions(s.opt.Resolutions)
+	return s.db.Update(func(txn *badger.Txn) error {
+		it, err := txn.Get(metaKey("format"))
+		switch {
+		case errors.Is(err, badger.ErrKeyNotFound):
+			return txn.Set(metaKey("format"), want)
+		case err != nil:
+			return err
+		}
+		return it.Value(func(got []byte) error {
+			if string(got) != string(want) {
+				return fmt.Errorf("state: %s was written with other bucket resolutions or format; use the configuration it was created with or a new directory", s.opt.Dir)
+			}
+			return nil
+		})
+	})
+}
+
+func encodeResolutions(rs []Resolution) []byte {
+	b := []byte{formatVersion}
+	for _, r := range rs {
+		b = binary.AppendUvarint(b, uint64(r.Step/time.Second))
+	}
+	return b
+}
+
+// Key prefixes. See docs/storage.md.
+const (
+	prefixUser       = 'u'
+	prefixCounter    = 'c'
+	prefixCheckpoint = 'k'
+	prefixMeta       = 'm'
+)
+
+func userKey(id string) []byte { return append([]byte{prefixUser}, id...) }
+
+func metaKey(name string) []byte { return append([]byte{prefixMeta}, name...) }
+
+func checkpointKey(source string) []byte { return append([]byte{prefixCheckpoint}, source...) }
+
+// counterKey is 'c' | resolution index | family | bucket start (Unix seconds,
+// big-endian with the sign bit flipped so keys sort by time).
+func counterKey(res int, f tally.Family, bucket int64) []byte {
+	k := make([]byte, 11)
+	k[0] = prefixCounter
+	k[1] = byte(res)
+	k[2] = byte(f)
+	binary.BigEndian.PutUint64(k[3:], uint64(bucket)^(1<<63))
+	return k
+}
+
+func bucketOfKey(k []byte) int64 { return int64(binary.BigEndian.Uint64(k[3:11]) ^ (1 << 63)) }
+
+// Commit is one atomic unit of change.
+type Commit struct {
+	Users       map[string][]byte // user id → encoded state; nil value deletes
+	Counters    *tally.Batch      // deltas at the finest resolution, fanned out to all
+	Checkpoints map[string][]byte // source → encoded checkpoint
+	Meta        map[string][]byte // name → value
+}
+
+// CommitStats describes a finished commit.
+type CommitStats struct {
+	Entries int
+	Bytes   int64
+	Took    time.Duration
+}
+
+// Commit writes c in one transaction.
+func (s *Store) Commit(ctx context.Context, c *Commit) (CommitStats, error) {
+	start := time.Now()
+	var st CommitStats
+	if err := ctx.Err(); err != nil {
+		return st, err
+	}
+	txn := s.db.NewTransaction(true)
+	defer txn.Discard()
+	set := func(k, v []byte) error {
+		st.Entries++
+		st.Bytes += int64(len(k) + len(v))
+		if err := txn.Set(k, v); err != nil {
+			return fmt.Errorf("state: set %q: %w", k[:1], err)
+		}
+		return nil
+	}
+	for id, v := range c.Users {
+		if v == nil {
+			st.Entries++
+			if err := txn.Delete(userKey(id)); err != nil {
+				return st, fmt.Errorf("state: delete user: %w", err)
+			}
+			continue
+		}
+		if err := set(userKey(id), v); err != nil {
+			return st, err
+		}
+	}
+	if c.Counters != nil {
+		if err := s.mergeCounters(txn, c.Counters, set); err != nil {
+			return st, err
+		}
+	}
+	for src, v := range c.Checkpoints {
+		if err := set(checkpointKey(src), v); err != nil {
+			return st, err
+		}
+	}
+	for name, v := range c.Meta {
+		if err := set(metaKey(name), v); err != nil {
+			return st, err
+		}
+	}
+	if err := txn.Commit(); err != nil {
+		return st, fmt.Errorf("state: commit: %w", err)
+	}
+	st.Took = time.Since(start)
+	return st, nil
+}
+
+type blobID struct {
+	res    int
+	fam    tally.Family
+	bucket int64
+}
+
+// mergeCounters adds the batch to the stored tables of every resolution.
+func (s *Store) mergeCounters(txn *badger.Txn, b *tally.Batch, set func(k, v []byte) error) error {
+	groups := make(map[blobID]tally.Table)
+	steps := make([]int64, len(s.opt.Resolutions))
+	for i, r := range s.opt.Resolutions {
+		steps[i] = int64(r.Step / time.Second)
+	}
+	if b.Step() != steps[0] {
+		return fmt.Errorf("state: batch step %ds does not match the finest resolution %ds", b.Step(), steps[0])
+	}
+	b.Range(func(k tally.Key, v tally.Vec) {
+		for i, step := range steps {
+			id := blobID{i, k.Family, tally.FloorDiv(k.Bucket, step) * step}
+			t := groups[id]
+			if t == nil {
+				t = make(tally.Table)
+				groups[id] = t
+			}
+			t[k.Dims] = t[k.Dims].Add(v)
+		}
+	})
+	var buf []byte
+	for id, delta := range groups {
+		key := counterKey(id.res, id.fam, id.bucket)
+		item, err := txn.Get(key)
+		switch {
+		case errors.Is(err, badger.ErrKeyNotFound):
+		case err != nil:
+			return fmt.Errorf("state: read counters: %w", err)
+		default:
+			if err := item.Value(func(v []byte) error { return tally.DecodeTable(v, delta) }); err != nil {
+				return fmt.Errorf("state: counters at %d: %w", id.bucket, err)
+			}
+		}
+		buf = tally.AppendTable(buf[:0], delta)
+		if err := set(key, append([]byte(nil), buf...)); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// Reader is a consistent snapshot of the store. Discard it when done.
+type Reader struct {
+	txn *badger.Txn
+	s   *Store
+}
+
+// NewReader opens a snapshot.
+func (s *Store) NewReader() *Reader { return &Reader{txn: s.db.NewTransaction(false), s: s} }
+
+// Discard releases the snapshot.
+func (r *Reader) Discard() { r.txn.Discard() }
+
+// User returns the encoded state of a user, or nil if there is none. The
+// bytes are a copy.
+func (r *Reader) User(id string) ([]byte, error) { return r.get(userKey(id)) }
+
+// Checkpoint returns a source's encoded checkpoint, or nil.
+func (r *Reader) Checkpoint(source string) ([]byte, error) { return r.get(checkpointKey(source)) }
+
+// Meta returns a metadata value, or nil.
+func (r *Reader) Meta(name string) ([]byte, error) { return r.get(metaKey(name)) }
+
+func (r *Reader) get(k []byte) ([]byte, error) {
+	item, err := r.txn.Get(k)
+	if errors.Is(err, badger.ErrKeyNotFound) {
+		return nil, nil
+	}
+	if err != nil {
+		return nil, fmt.Errorf("state: get: %w", err)
+	}
+	return item.ValueCopy(nil)
+}
+
+// Buckets calls fn for every stored bucket of family f at resolution res whose
+// start lies in [from, to) (Unix seconds), in time order, with the decoded
+// table of that bucket.
+func (r *Reader) Buckets(res int, f tally.Family, from, to int64, fn func(bucket int64, t tally.Table) error) error {
+	opts := badger.DefaultIteratorOptions
+	opts.PrefetchValues = false
+	prefix := []byte{prefixCounter, byte(res), byte(f)}
+	opts.Prefix = prefix
+	it := r.txn.NewIterator(opts)
+	defer it.Close()
+	end := counterKey(res, f, to)
+	for it.Seek(counterKey(res, f, from)); it.ValidForPrefix(prefix); it.Next() {
+		k := it.Item().Key()
+		if string(k) >= string(end) {
+			break
+		}
+		t := make(tally.Table)
+		if err := it.Item().Value(func(v []byte) error { return tally.DecodeTable(v, t) }); err != nil {
+			return fmt.Errorf("state: bucket %d: %w", bucketOfKey(k), err)
+		}
+		if err := fn(bucketOfKey(k), t); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// Sum adds into t every bucket of family f at resolution res in [from, to).
+func (r *Reader) Sum(res int, f tally.Family, from, to int64, t tally.Table) error {
+	return r.Buckets(res, f, from, to, func(_ int64, b tally.Table) error {
+		t.AddTable(b)
+		return nil
+	})
+}
+
+// Users calls fn for every stored user id (for erasure scans and tests).
+func (r *Reader) Users(fn func(id string) error) error {
+	opts := badger.DefaultIteratorOptions
+	opts.PrefetchValues = false
+	opts.Prefix = []byte{prefixUser}
+	it := r.txn.NewIterator(opts)
+	defer it.Close()
+	for it.Rewind(); it.Valid(); it.Next() {
+		if err := fn(string(it.Item().Key()[1:])); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+type badgerLogger struct{ l *slog.Logger }
+
+func (b badgerLogger) Errorf(f string, a ...any) {
+	if b.l != nil {
+		b.l.Error(fmt.Sprintf(f, a...), "component", "badger")
+	}
+}
+func (b badgerLogger) Warningf(f string, a ...any) {
+	if b.l != nil {
+		b.l.Warn(fmt.Sprintf(f, a...), "component", "badger")
+	}
+}
+func (b badgerLogger) Infof(string, ...any)  {}
+func (b badgerLogger) Debugf(string, ...any) {}
+
+// Metadata names written by the pipeline and read by queries.
+const (
+	MetaWatermark = "watermark" // varint largest event time seen (Unix ns) | varint watermark floor
+	MetaRejects   = "rejects"   // varint committed length of the rejects file
+	MetaOpen      = "open"      // source whose buffered events are pending ("" when none)
+)
+
+// EncodeWatermark encodes the MetaWatermark value.
+func EncodeWatermark(maxSeen, floor int64) []byte {
+	return binary.AppendVarint(binary.AppendVarint(nil, maxSeen), floor)
+}
+
+// Watermark returns the committed largest event time seen and watermark
+// floor; ok is false when nothing was committed yet.
+func (r *Reader) Watermark() (maxSeen, floor int64, ok bool, err error) {
+	b, err := r.Meta(MetaWatermark)
+	if err != nil || b == nil {
+		return 0, 0, false, err
+	}
+	maxSeen, n1 := binary.Varint(b)
+	if n1 <= 0 {
+		return 0, 0, false, errors.New("state: corrupt watermark")
+	}
+	floor, n2 := binary.Varint(b[n1:])
+	if n2 <= 0 {
+		return 0, 0, false, errors.New("state: corrupt watermark")
+	}
+	return maxSeen, floor, true, nil
+}
