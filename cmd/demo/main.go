@@ -66,8 +66,8 @@ func run(args []string, stdout, stderr io.Writer) error {
 	fs.IntVar(&o.days, "days", def.Days, "length of the period in days")
 	fs.IntVar(&o.visitors, "visitors", def.Visitors, "people who first visit in the period (about 5 events each)")
 	fs.StringVar(&o.start, "start", def.Start.Format(time.DateOnly), "first day, `DATE` (2026-10-01) or an RFC 3339 time; UTC")
-	fs.IntVar(&o.shiftDay, "shift-day", -1, "day (0-based) the budget moves from search_ads to social_ads (default: days/2)")
-	fs.IntVar(&o.incidentDay, "incident-day", -1, "day (0-based) of the 40-minute checkout outage at 15:00 UTC (default: days*5/7)")
+	fs.IntVar(&o.shiftDay, "shift-day", -1, "day (0-based) the budget moves from search_ads to social_ads; -1 means days/2")
+	fs.IntVar(&o.incidentDay, "incident-day", -1, "day (0-based) of the 40-minute checkout outage at 15:00 UTC; -1 means days*5/7")
 	fs.StringVar(&o.off, "off", "", "comma-separated `CHANNELS` to switch off (what-if runs); one of "+strings.Join(shop.Channels(), ", "))
 	fs.StringVar(&o.truth, "truth", "", "also write the true incremental conversions per channel as JSON to `FILE`")
 	if err := fs.Parse(args); err != nil {

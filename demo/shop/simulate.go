@@ -21,11 +21,9 @@ const (
 	interView  uint8 = 1
 )
 
-// rec is one event before encoding. t is milliseconds since Config.Start; seq
-// is the generation order, the tie-break that makes the time sort stable.
+// rec is one event before encoding; t is milliseconds since Config.Start.
 type rec struct {
 	t     int64
-	seq   uint64
 	user  int32
 	cents int32  // actions: item price or cart total
 	n     uint16 // the visitor's event number, part of the id
@@ -99,10 +97,25 @@ func (w *world) arrivalDay(visitor int) int {
 // budget scales an exposure chance p of channel c at time t by the budget in
 // force then, capped at 1.
 func (w *world) budget(c int, t int64, p float64) float64 {
+	return math.Min(p*w.multiplier(c, t), 1)
+}
+
+// multiplier is channel c's budget at time t relative to before the shift.
+func (w *world) multiplier(c int, t int64) float64 {
 	if t >= w.shiftMs {
-		p *= channelSpecs[c].afterShift
+		return channelSpecs[c].afterShift
 	}
-	return math.Min(p, 1)
+	return 1
+}
+
+// peakBudget is the largest budget multiplier channel c ever has.
+func peakBudget(c int) float64 { return max(1, channelSpecs[c].afterShift) }
+
+// inBudget thins candidate views drawn at the peak budget: a view at time t
+// is kept with chance multiplier(t)/peak, so the views that happen follow the
+// budget in force at their own time, even when a window spans the shift.
+func (w *world) inBudget(c int, t int64, r *stream) bool {
+	return r.float()*peakBudget(c) < w.multiplier(c, t)
 }
 
 // visitor is the scratch state for simulating one person; reused across people.
@@ -232,11 +245,13 @@ func (v *visitor) touches(c int) {
 	}
 	first := v.visitStart[0]
 	pre := false
-	if sp.preView > 0 && r.float() < w.budget(c, first, sp.preView) {
-		pre = true
+	if sp.preView > 0 && r.float() < math.Min(1, sp.preView*peakBudget(c)) {
 		for range 1 + r.intn(sp.maxPre) {
 			t := first - r.between(10*minuteMs, preLeadDays*dayMs)
-			v.touch(c, t, interView, v.campaign(c, t, &r))
+			if w.inBudget(c, t, &r) {
+				pre = true
+				v.touch(c, t, interView, v.campaign(c, t, &r))
+			}
 		}
 	}
 	last := v.visits - 1
@@ -262,10 +277,11 @@ func (v *visitor) touches(c int) {
 		if i < last {
 			from, to = v.visitEnd[i]+minuteMs, v.visitStart[i+1]-minuteMs
 		}
-		if r.float() < w.budget(c, from, sp.gapView[v.tier]) {
+		if r.float() < math.Min(1, sp.gapView[v.tier]*peakBudget(c)) {
 			for range 1 + r.intn(sp.maxGap) {
-				t := r.between(from, to)
-				v.touch(c, t, interView, v.campaign(c, t, &r))
+				if t := r.between(from, to); w.inBudget(c, t, &r) {
+					v.touch(c, t, interView, v.campaign(c, t, &r))
+				}
 			}
 		}
 	}

@@ -81,12 +81,17 @@ type channelSpec struct {
 	visitClick [numTiers]float64
 	firstClick [numTiers]float64
 	// preView is the chance of 1..maxPre views before the first visit (up to
-	// preLeadDays before it); preClick the chance that, after such views, the
-	// first visit starts with a click from the channel.
+	// preLeadDays before it), at the budget before the shift; preClick the
+	// chance that, after such views, the first visit starts with a click from
+	// the channel.
 	preView  float64
 	maxPre   int
 	preClick float64
-	// gapView is the chance of 1..maxGap views in each gap after a visit, by tier.
+	// gapView is the chance of 1..maxGap views in each gap after a visit, by
+	// tier, at the budget before the shift. For views the budget works by
+	// thinning: candidates are drawn at the channel's peak budget and each is
+	// kept with chance (budget at its time)/peak, so the expected number of
+	// views follows the budget in force at each view's own time.
 	gapView [numTiers]float64
 	maxGap  int
 	// afterShift multiplies the exposure chances from ShiftDay on.

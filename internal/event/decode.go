@@ -3,11 +3,7 @@ package event
 import (
 	"bytes"
 	"fmt"
-	"strconv"
 	"time"
-	"unicode/utf8"
-
-	"github.com/valyala/fastjson"
 )
 
 // Limits bounds the size of an input event. All sizes are in bytes.
@@ -62,16 +58,15 @@ var fieldNames = [numFields]string{"id", "user", "time", "kind", "channel", "cam
 const noField = numFields
 
 // Decoder decodes and validates one JSON event. Not safe for concurrent use
-// (reuses a fastjson.Parser).
+// (it reuses its buffers between calls).
 type Decoder struct {
 	lim      Limits
 	currency string
 
-	parser    fastjson.Parser
-	values    [numFields]*fastjson.Value // the known fields of the current payload; nil = absent
-	duplicate field                      // first known field seen twice, or noField
-	strs      []byte                     // the Event's strings, concatenated before the one copy
-	number    []byte                     // raw text of the value field
+	members   [numFields]member // the known fields of the current payload
+	duplicate field             // first known field seen twice, or noField
+	key       []byte            // an object key with escapes, unescaped
+	strs      []byte            // the Event's strings, concatenated before the one copy
 }
 
 // NewDecoder returns a decoder that enforces lim and, when currency is not
@@ -84,86 +79,136 @@ func NewDecoder(lim Limits, currency string) *Decoder {
 // Decode returns the event or a *RejectError (never panics, never another
 // error type). The returned Event owns its strings; b is not retained.
 //
-// Checks run in this order: size, UTF-8, JSON syntax, object shape, duplicate
-// known fields, required id/user/time/kind, id and user limits, time, kind,
-// the kind's own fields, currency. The first failure is returned.
+// Checks run in this order: size, JSON syntax and UTF-8, object shape,
+// duplicate known fields, required id/user/time/kind, id and user limits,
+// time, kind, the kind's own fields, currency. The first failure is returned.
 func (d *Decoder) Decode(b []byte) (Event, error) {
 	if len(b) > d.lim.MaxPayload {
 		return Event{}, reject(ReasonTooLarge, "", fmt.Sprintf("payload is %d bytes, limit is %d", len(b), d.lim.MaxPayload))
 	}
-	if !utf8.Valid(b) {
-		return Event{}, reject(ReasonBadJSON, "", "payload is not valid utf-8")
+	if rej := d.scanEvent(b); rej != nil {
+		return Event{}, rej
 	}
-	// fastjson.Parser is lenient (NaN, leading zeros, raw control characters
-	// and unknown escapes pass); ValidateBytes holds the payload to RFC 8259.
-	if fastjson.ValidateBytes(b) != nil {
-		return Event{}, reject(ReasonBadJSON, "", "payload is not valid json")
-	}
-	if bytes.IndexByte(b, '\\') >= 0 && !surrogatesPaired(b) {
-		return Event{}, reject(ReasonBadJSON, "", "payload holds an unpaired utf-16 surrogate escape")
-	}
-	root, err := d.parser.ParseBytes(b)
-	if err != nil {
-		return Event{}, reject(ReasonBadJSON, "", "payload is not valid json")
-	}
-	obj, err := root.Object()
-	if err != nil {
-		return Event{}, reject(ReasonBadJSON, "", "payload is a json "+typeName(root)+", not an object")
-	}
-
-	d.values = [numFields]*fastjson.Value{}
-	d.duplicate = noField
-	obj.Visit(d.collect)
 	if d.duplicate != noField {
 		return Event{}, rejectField(ReasonBadField, d.duplicate, "appears more than once")
 	}
-	return d.event()
+	ev, rej := d.event(b)
+	if rej != nil {
+		return Event{}, rej
+	}
+	return ev, nil
 }
 
-// collect records the known fields of one object member.
-func (d *Decoder) collect(key []byte, v *fastjson.Value) {
-	var f field
+// scanEvent checks that b is one JSON object and records where its known
+// fields lie in d.members.
+func (d *Decoder) scanEvent(b []byte) *RejectError {
+	d.members = [numFields]member{}
+	d.duplicate = noField
+	i := skipSpace(b, 0)
+	if c := peek(b, i); c != '{' {
+		if i >= len(b) {
+			return reject(ReasonBadJSON, "", "payload is empty")
+		}
+		_, typ, _ := scanValue(b, i, 1)
+		if typ == absent {
+			return reject(ReasonBadJSON, "", unexpected(b, i, "'{'").message())
+		}
+		return reject(ReasonBadJSON, "", "payload is a json "+typ.String()+", not an object")
+	}
+	i = skipSpace(b, i+1)
+	if peek(b, i) == '}' {
+		i++
+	} else {
+		for {
+			if peek(b, i) != '"' {
+				return badJSON(unexpected(b, i, "a string key"))
+			}
+			keyStart := i + 1
+			end, escaped, bad := scanString(b, keyStart)
+			if bad.what != "" {
+				return badJSON(bad)
+			}
+			key := b[keyStart : end-1]
+			if escaped {
+				d.key = unescape(d.key[:0], key)
+				key = d.key
+			}
+			i = skipSpace(b, end)
+			if peek(b, i) != ':' {
+				return badJSON(unexpected(b, i, "':'"))
+			}
+			i = skipSpace(b, i+1)
+			valueStart := i
+			var typ valueType
+			if i, typ, bad = scanValue(b, i, 1); bad.what != "" {
+				return badJSON(bad)
+			}
+			if f := fieldOf(key); f != noField {
+				m := &d.members[f]
+				if m.typ != absent {
+					if d.duplicate == noField {
+						d.duplicate = f
+					}
+				} else {
+					*m = member{typ: typ, start: valueStart, end: i}
+					if typ == typeString {
+						m.start, m.end = valueStart+1, i-1
+						m.escaped = bytes.IndexByte(b[m.start:m.end], '\\') >= 0
+					}
+				}
+			}
+			i = skipSpace(b, i)
+			if c := peek(b, i); c == ',' {
+				i = skipSpace(b, i+1)
+				continue
+			} else if c == '}' {
+				i++
+				break
+			}
+			return badJSON(unexpected(b, i, "',' or '}'"))
+		}
+	}
+	if i = skipSpace(b, i); i != len(b) {
+		return badJSON(syntaxError{at: i, what: "data after the object"})
+	}
+	return nil
+}
+
+// fieldOf returns the known field named key, or noField.
+func fieldOf(key []byte) field {
 	switch string(key) {
 	case "id":
-		f = fieldID
+		return fieldID
 	case "user":
-		f = fieldUser
+		return fieldUser
 	case "time":
-		f = fieldTime
+		return fieldTime
 	case "kind":
-		f = fieldKind
+		return fieldKind
 	case "channel":
-		f = fieldChannel
+		return fieldChannel
 	case "campaign":
-		f = fieldCampaign
+		return fieldCampaign
 	case "interaction":
-		f = fieldInteraction
+		return fieldInteraction
 	case "action":
-		f = fieldAction
+		return fieldAction
 	case "value":
-		f = fieldValue
+		return fieldValue
 	case "currency":
-		f = fieldCurrency
-	default:
-		return
+		return fieldCurrency
 	}
-	if d.values[f] != nil {
-		if d.duplicate == noField {
-			d.duplicate = f
-		}
-		return
-	}
-	d.values[f] = v
+	return noField
 }
 
-// event validates the collected fields and builds the Event.
-func (d *Decoder) event() (Event, error) {
+// event validates the recorded fields of b and builds the Event.
+func (d *Decoder) event(b []byte) (Event, *RejectError) {
 	var (
-		raw [numFields][]byte // validated string fields, pointing into the parser's memory
+		raw [numFields][]byte // validated string fields
 		rej *RejectError
 	)
 	for _, f := range [...]field{fieldID, fieldUser, fieldTime, fieldKind} {
-		if raw[f], rej = d.requiredString(f); rej != nil {
+		if raw[f], rej = d.requiredString(b, f); rej != nil {
 			return Event{}, rej
 		}
 	}
@@ -182,19 +227,19 @@ func (d *Decoder) event() (Event, error) {
 	switch string(raw[fieldKind]) {
 	case "touch":
 		ev.Kind = Touch
-		if raw[fieldChannel], rej = d.requiredString(fieldChannel); rej != nil {
+		if raw[fieldChannel], rej = d.requiredString(b, fieldChannel); rej != nil {
 			return Event{}, rej
 		}
 		if rej = checkName(fieldChannel, raw[fieldChannel], d.lim.MaxName); rej != nil {
 			return Event{}, rej
 		}
-		if raw[fieldCampaign], rej = d.optionalString(fieldCampaign); rej != nil {
+		if raw[fieldCampaign], rej = d.optionalString(b, fieldCampaign); rej != nil {
 			return Event{}, rej
 		}
 		if rej = checkName(fieldCampaign, raw[fieldCampaign], d.lim.MaxName); rej != nil {
 			return Event{}, rej
 		}
-		interaction, rej := d.optionalString(fieldInteraction)
+		interaction, rej := d.optionalString(b, fieldInteraction)
 		if rej != nil {
 			return Event{}, rej
 		}
@@ -208,20 +253,20 @@ func (d *Decoder) event() (Event, error) {
 		}
 	case "action":
 		ev.Kind = Action
-		if raw[fieldAction], rej = d.requiredString(fieldAction); rej != nil {
+		if raw[fieldAction], rej = d.requiredString(b, fieldAction); rej != nil {
 			return Event{}, rej
 		}
 		if rej = checkName(fieldAction, raw[fieldAction], d.lim.MaxName); rej != nil {
 			return Event{}, rej
 		}
-		if ev.Value, ev.HasValue, rej = d.value(); rej != nil {
+		if ev.Value, ev.HasValue, rej = d.value(b); rej != nil {
 			return Event{}, rej
 		}
 	default:
 		return Event{}, rejectField(ReasonBadKind, fieldKind, `must be "touch" or "action"`)
 	}
 
-	if raw[fieldCurrency], rej = d.optionalString(fieldCurrency); rej != nil {
+	if raw[fieldCurrency], rej = d.optionalString(b, fieldCurrency); rej != nil {
 		return Event{}, rej
 	}
 	if rej = checkName(fieldCurrency, raw[fieldCurrency], d.lim.MaxName); rej != nil {
@@ -233,8 +278,7 @@ func (d *Decoder) event() (Event, error) {
 			fmt.Sprintf("is %q, the configured currency is %q", raw[fieldCurrency], d.currency))
 	}
 
-	// One allocation holds every string of the event: fastjson reuses its
-	// memory on the next parse, so the bytes must be copied anyway.
+	// One allocation holds every string of the event.
 	d.strs = d.strs[:0]
 	for _, f := range [...]field{fieldID, fieldUser, fieldChannel, fieldCampaign, fieldAction} {
 		d.strs = append(d.strs, raw[f]...)
@@ -261,59 +305,58 @@ func (d *Decoder) event() (Event, error) {
 	return ev, nil
 }
 
-// requiredString returns the bytes of a required string field: absent, null
+// requiredString returns the text of a required string field: absent, null
 // or "" is missing_field, another JSON type is bad_field.
-func (d *Decoder) requiredString(f field) ([]byte, *RejectError) {
-	v := d.values[f]
-	if v == nil {
+func (d *Decoder) requiredString(b []byte, f field) ([]byte, *RejectError) {
+	m := d.members[f]
+	switch m.typ {
+	case absent:
 		return nil, rejectField(ReasonMissingField, f, "is absent")
-	}
-	switch v.Type() {
-	case fastjson.TypeNull:
+	case typeNull:
 		return nil, rejectField(ReasonMissingField, f, "is null")
-	case fastjson.TypeString:
-	default:
-		return nil, rejectField(ReasonBadField, f, "must be a string, got "+typeName(v))
+	case typeString:
+		if m.end == m.start {
+			return nil, rejectField(ReasonMissingField, f, "is empty")
+		}
+		return d.text(b, m), nil
 	}
-	s, _ := v.StringBytes() // cannot fail: the type is string
-	if len(s) == 0 {
-		return nil, rejectField(ReasonMissingField, f, "is empty")
-	}
-	return s, nil
+	return nil, rejectField(ReasonBadField, f, "must be a string, got "+m.typ.String())
 }
 
-// optionalString returns the bytes of an optional string field; absent or
+// optionalString returns the text of an optional string field; absent or
 // null gives nil, another JSON type is bad_field.
-func (d *Decoder) optionalString(f field) ([]byte, *RejectError) {
-	v := d.values[f]
-	if v == nil {
+func (d *Decoder) optionalString(b []byte, f field) ([]byte, *RejectError) {
+	m := d.members[f]
+	switch m.typ {
+	case absent, typeNull:
 		return nil, nil
+	case typeString:
+		return d.text(b, m), nil
 	}
-	switch v.Type() {
-	case fastjson.TypeNull:
-		return nil, nil
-	case fastjson.TypeString:
-		s, _ := v.StringBytes() // cannot fail: the type is string
-		return s, nil
+	return nil, rejectField(ReasonBadField, f, "must be a string, got "+m.typ.String())
+}
+
+// text returns a string member's text, unescaped when needed (a rare case
+// that costs an allocation).
+func (d *Decoder) text(b []byte, m member) []byte {
+	s := b[m.start:m.end]
+	if m.escaped {
+		return unescape(make([]byte, 0, len(s)), s)
 	}
-	return nil, rejectField(ReasonBadField, f, "must be a string, got "+typeName(v))
+	return s
 }
 
 // value reads the optional value field of an action in micro-units.
-func (d *Decoder) value() (micro int64, has bool, rej *RejectError) {
-	v := d.values[fieldValue]
-	if v == nil {
+func (d *Decoder) value(b []byte) (micro int64, has bool, rej *RejectError) {
+	m := d.members[fieldValue]
+	switch m.typ {
+	case absent, typeNull:
 		return 0, false, nil
-	}
-	switch v.Type() {
-	case fastjson.TypeNull:
-		return 0, false, nil
-	case fastjson.TypeNumber:
+	case typeNumber:
 	default:
-		return 0, false, rejectField(ReasonBadField, fieldValue, "must be a number, got "+typeName(v))
+		return 0, false, rejectField(ReasonBadField, fieldValue, "must be a number, got "+m.typ.String())
 	}
-	d.number = v.MarshalTo(d.number[:0]) // a number marshals as its raw text
-	micro, ok := microUnits(d.number)
+	micro, ok := microUnits(b[m.start:m.end])
 	if !ok {
 		return 0, false, rejectField(ReasonBadValue, fieldValue, "must be a number from 0 to 1e12")
 	}
@@ -486,70 +529,8 @@ func microUnits(num []byte) (micro int64, ok bool) {
 	return micro, true
 }
 
-// surrogatesPaired reports whether every \u escape of a UTF-16 surrogate in b
-// is a high surrogate directly followed by an escaped low surrogate. b must be
-// valid JSON, so every backslash starts an escape inside a string.
-func surrogatesPaired(b []byte) bool {
-	for {
-		i := bytes.IndexByte(b, '\\')
-		if i < 0 {
-			return true
-		}
-		b = b[i:]
-		if len(b) < 2 {
-			return false
-		}
-		if b[1] != 'u' {
-			b = b[2:]
-			continue
-		}
-		r := hex4(b[2:])
-		switch {
-		case r < 0:
-			return false
-		case r >= 0xd800 && r < 0xdc00:
-			if len(b) < 12 || b[6] != '\\' || b[7] != 'u' {
-				return false
-			}
-			if low := hex4(b[8:]); low < 0xdc00 || low > 0xdfff {
-				return false
-			}
-			b = b[12:]
-		case r >= 0xdc00 && r <= 0xdfff:
-			return false
-		default:
-			b = b[6:]
-		}
-	}
-}
-
-// hex4 parses the four hex digits at the start of b, or returns -1.
-func hex4(b []byte) int {
-	if len(b) < 4 {
-		return -1
-	}
-	n, err := strconv.ParseUint(string(b[:4]), 16, 16)
-	if err != nil {
-		return -1
-	}
-	return int(n)
-}
-
-// typeName names a JSON value's type for messages.
-func typeName(v *fastjson.Value) string {
-	switch v.Type() {
-	case fastjson.TypeTrue, fastjson.TypeFalse:
-		return "boolean"
-	case fastjson.TypeObject:
-		return "object"
-	case fastjson.TypeArray:
-		return "array"
-	case fastjson.TypeString:
-		return "string"
-	case fastjson.TypeNumber:
-		return "number"
-	}
-	return "null"
+func badJSON(e syntaxError) *RejectError {
+	return reject(ReasonBadJSON, "", e.message())
 }
 
 func reject(r Reason, field, msg string) *RejectError {

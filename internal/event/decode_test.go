@@ -67,7 +67,7 @@ func TestDecodeAccepts(t *testing.T) {
 		{"escaped strings are unescaped", "", `{"id":"e\/1","user":"\u00e9l\u00e8ve \ud83d\ude00","kind":"touch","channel":"news\"letter","time":"2026-03-10T23:40:00Z"}`,
 			touch(func(e *Event) { e.ID = "e/1"; e.User = "élève 😀"; e.Channel = `news"letter` })},
 		{"whitespace around and inside", "", " \t\r\n{ \"id\" : \"e1\" , \"user\":\"u1\",\n\"kind\":\"touch\",\"channel\":\"newsletter\",\"time\":\"2026-03-10T23:40:00Z\" }\r\n", touch(nil)},
-		{"deep nesting in an unknown field ignored", "", touchHead + `"time":"2026-03-10T23:40:00Z","deep":` + nested(250) + `}`, touch(nil)},
+		{"deep nesting in an unknown field ignored", "", touchHead + `"time":"2026-03-10T23:40:00Z","deep":` + nested(maxDepth-2) + `}`, touch(nil)},
 		{"currency matches", "EUR", touchHead + `"time":"2026-03-10T23:40:00Z","currency":"EUR"}`, touch(func(e *Event) { e.Currency = "EUR" })},
 		{"currency empty with configured currency", "EUR", touchHead + `"time":"2026-03-10T23:40:00Z","currency":""}`, touch(nil)},
 		{"currency null", "EUR", touchHead + `"time":"2026-03-10T23:40:00Z","currency":null}`, touch(nil)},
@@ -164,7 +164,8 @@ func TestDecodeRejects(t *testing.T) {
 		{"leading zero", DefaultLimits(), "", action + `,"value":012}`, ReasonBadJSON, ""},
 		{"plus sign", DefaultLimits(), "", action + `,"value":+1}`, ReasonBadJSON, ""},
 		{"bare fraction", DefaultLimits(), "", action + `,"value":.5}`, ReasonBadJSON, ""},
-		{"nesting deeper than 300", DefaultLimits(), "", action + `,"deep":` + nested(400) + `}`, ReasonBadJSON, ""},
+		{"nesting one level too deep", DefaultLimits(), "", action + `,"deep":` + nested(maxDepth-1) + `}`, ReasonBadJSON, ""},
+		{"nesting 10000 levels deep", DefaultLimits(), "", action + `,"deep":` + nested(10000) + `}`, ReasonBadJSON, ""},
 
 		{"duplicate id", DefaultLimits(), "", action + `,"id":"e3"}`, ReasonBadField, "id"},
 		{"duplicate value", DefaultLimits(), "", action + `,"value":1,"value":2}`, ReasonBadField, "value"},

@@ -67,10 +67,9 @@ func checkReject(t *testing.T, payload []byte, err error) {
 		t.Fatalf("Decode(%q): empty message", payload)
 	}
 	if rej.Reason == ReasonBadJSON && json.Valid(payload) && utf8.Valid(payload) &&
-		!strings.Contains(rej.Msg, "surrogate") && !strings.Contains(rej.Msg, "not an object") && depth(payload) <= 300 {
-		// encoding/json takes what fastjson.Validate takes, except lone
-		// surrogate escapes (which it replaces) and nesting beyond
-		// fastjson's depth of 300.
+		!strings.Contains(rej.Msg, "surrogate") && !strings.Contains(rej.Msg, "not an object") && depth(payload) <= maxDepth {
+		// encoding/json takes the same JSON, except lone surrogate escapes
+		// (which it replaces) and nesting beyond maxDepth.
 		t.Fatalf("Decode(%q) = bad_json (%s), but encoding/json calls it valid", payload, rej.Msg)
 	}
 }

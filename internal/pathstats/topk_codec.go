@@ -79,9 +79,12 @@ func (t *TopK) UnmarshalBinary(b []byte) error {
 	seen := make(map[string]struct{}, k)
 	var sum, prev int64
 	for i := range items {
-		keyLen := r.uvarint("key length", uint64(len(r.b)))
+		keyLen := r.uvarint("key length", math.MaxInt32)
 		if r.err != nil {
 			return r.err
+		}
+		if keyLen > uint64(len(r.b)) {
+			return fmt.Errorf("%w: key of %d bytes in %d", ErrCorrupt, keyLen, len(r.b))
 		}
 		key := string(r.b[:keyLen])
 		r.b = r.b[keyLen:]

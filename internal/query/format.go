@@ -222,3 +222,27 @@ func spark(x float64) rune {
 }
 
 
+
+// WriteStatus writes a status summary.
+func WriteStatus(w io.Writer, s Summary, p Plan, f Format) error {
+	type out struct {
+		From string `json:"from"`
+		To   string `json:"to"`
+		Summary
+	}
+	o := out{FormatTime(p.From), FormatTime(p.To), s}
+	switch f {
+	case JSON:
+		return WriteJSON(w, o)
+	case CSV:
+		cw := csv.NewWriter(w)
+		cw.Write([]string{"from", "to", "latest_event", "conversions", "value", "sessions", "actions", "touches"})
+		cw.Write([]string{o.From, o.To, s.Latest, strconv.FormatInt(s.Conversions, 10), strconv.FormatFloat(s.Value, 'f', -1, 64),
+			strconv.FormatInt(s.Sessions, 10), strconv.FormatInt(s.Actions, 10), strconv.FormatInt(s.Touches, 10)})
+		cw.Flush()
+		return cw.Error()
+	}
+	_, err := fmt.Fprintf(w, "window %s to %s\nlatest event %s\nconversions %d, value %s\nsessions %d, actions %d, touches %d\n",
+		o.From, o.To, s.Latest, s.Conversions, f2(s.Value), s.Sessions, s.Actions, s.Touches)
+	return err
+}

@@ -1,0 +1,51 @@
+package pipeline
+
+import (
+	"github.com/touchledger/touchledger/internal/config"
+	"github.com/touchledger/touchledger/internal/credit"
+	"github.com/touchledger/touchledger/internal/event"
+	"github.com/touchledger/touchledger/internal/sessionize"
+	"github.com/touchledger/touchledger/internal/state"
+)
+
+// FromConfig builds the processor configuration from the file configuration.
+func FromConfig(c config.Config) Config {
+	return Config{
+		Tracker: sessionize.Params{
+			SessionGap:     c.SessionGap.D(),
+			ClickLookback:  c.ClickLookback.D(),
+			ViewLookback:   c.ViewLookback.D(),
+			JourneyTimeout: c.JourneyTimeout.D(),
+			DedupHorizon:   c.DedupHorizon.D(),
+			Conversions:    c.ConversionActions,
+			Credit: credit.Params{
+				HalfLife: c.HalfLife.D(),
+				First:    c.PositionWeights.First,
+				Middle:   c.PositionWeights.Middle,
+				Last:     c.PositionWeights.Last,
+				Direct:   c.DirectChannel,
+			},
+			MaxPath:    64,
+			MaxTouches: 100,
+		},
+		Lateness:       c.Lateness.D(),
+		Currency:       c.Currency,
+		Limits:         event.Limits{MaxPayload: c.Limits.MaxPayload, MaxID: c.Limits.MaxID, MaxUser: c.Limits.MaxUser, MaxName: c.Limits.MaxName},
+		CacheUsers:     c.Store.CacheUsers,
+		CommitEvents:   c.Store.CommitEvents,
+		CommitInterval: c.Store.CommitInterval.D(),
+	}
+}
+
+// StoreOptions builds the store options for dir from the file configuration.
+func StoreOptions(dir string, c config.Config) state.Options {
+	o := state.DefaultOptions(dir)
+	o.Resolutions = o.Resolutions[:0]
+	for _, r := range c.Store.Resolutions {
+		o.Resolutions = append(o.Resolutions, state.Resolution{Name: r.Name, Step: r.Step.D(), Retention: r.Retention.D()})
+	}
+	o.MemtableMiB = c.Store.MemtableMiB
+	o.BlockCacheMiB = c.Store.BlockCacheMiB
+	o.IndexCacheMiB = c.Store.IndexCacheMiB
+	return o
+}
