@@ -124,12 +124,12 @@ func (d *Decoder) scanEvent(b []byte) *RejectError {
 				return badJSON(unexpected(b, i, "a string key"))
 			}
 			keyStart := i + 1
-			end, escaped, bad := scanString(b, keyStart)
+			end, flags, bad := scanString(b, keyStart)
 			if bad.what != "" {
 				return badJSON(bad)
 			}
 			key := b[keyStart : end-1]
-			if escaped {
+			if flags&escapedString != 0 {
 				d.key = unescape(d.key[:0], key)
 				key = d.key
 			}
@@ -138,23 +138,25 @@ func (d *Decoder) scanEvent(b []byte) *RejectError {
 				return badJSON(unexpected(b, i, "':'"))
 			}
 			i = skipSpace(b, i+1)
-			valueStart := i
-			var typ valueType
-			if i, typ, bad = scanValue(b, i, 1); bad.what != "" {
+			f := fieldOf(key)
+			var m member
+			if peek(b, i) == '"' {
+				m = member{typ: typeString, start: i + 1}
+				i, m.flags, bad = scanString(b, i+1)
+				m.end = i - 1
+			} else {
+				m.start = i
+				i, m.typ, bad = scanValue(b, i, 1)
+				m.end = i
+			}
+			if bad.what != "" {
 				return badJSON(bad)
 			}
-			if f := fieldOf(key); f != noField {
-				m := &d.members[f]
-				if m.typ != absent {
-					if d.duplicate == noField {
-						d.duplicate = f
-					}
-				} else {
-					*m = member{typ: typ, start: valueStart, end: i}
-					if typ == typeString {
-						m.start, m.end = valueStart+1, i-1
-						m.escaped = bytes.IndexByte(b[m.start:m.end], '\\') >= 0
-					}
+			if f != noField {
+				if d.members[f].typ == absent {
+					d.members[f] = m
+				} else if d.duplicate == noField {
+					d.duplicate = f
 				}
 			}
 			i = skipSpace(b, i)
@@ -212,10 +214,10 @@ func (d *Decoder) event(b []byte) (Event, *RejectError) {
 			return Event{}, rej
 		}
 	}
-	if rej = checkName(fieldID, raw[fieldID], d.lim.MaxID); rej != nil {
+	if rej = checkName(fieldID, raw[fieldID], d.members[fieldID].flags, d.lim.MaxID); rej != nil {
 		return Event{}, rej
 	}
-	if rej = checkName(fieldUser, raw[fieldUser], d.lim.MaxUser); rej != nil {
+	if rej = checkName(fieldUser, raw[fieldUser], d.members[fieldUser].flags, d.lim.MaxUser); rej != nil {
 		return Event{}, rej
 	}
 	at, rej := parseTime(raw[fieldTime])
@@ -230,13 +232,13 @@ func (d *Decoder) event(b []byte) (Event, *RejectError) {
 		if raw[fieldChannel], rej = d.requiredString(b, fieldChannel); rej != nil {
 			return Event{}, rej
 		}
-		if rej = checkName(fieldChannel, raw[fieldChannel], d.lim.MaxName); rej != nil {
+		if rej = checkName(fieldChannel, raw[fieldChannel], d.members[fieldChannel].flags, d.lim.MaxName); rej != nil {
 			return Event{}, rej
 		}
 		if raw[fieldCampaign], rej = d.optionalString(b, fieldCampaign); rej != nil {
 			return Event{}, rej
 		}
-		if rej = checkName(fieldCampaign, raw[fieldCampaign], d.lim.MaxName); rej != nil {
+		if rej = checkName(fieldCampaign, raw[fieldCampaign], d.members[fieldCampaign].flags, d.lim.MaxName); rej != nil {
 			return Event{}, rej
 		}
 		interaction, rej := d.optionalString(b, fieldInteraction)
@@ -256,7 +258,7 @@ func (d *Decoder) event(b []byte) (Event, *RejectError) {
 		if raw[fieldAction], rej = d.requiredString(b, fieldAction); rej != nil {
 			return Event{}, rej
 		}
-		if rej = checkName(fieldAction, raw[fieldAction], d.lim.MaxName); rej != nil {
+		if rej = checkName(fieldAction, raw[fieldAction], d.members[fieldAction].flags, d.lim.MaxName); rej != nil {
 			return Event{}, rej
 		}
 		if ev.Value, ev.HasValue, rej = d.value(b); rej != nil {
@@ -269,7 +271,7 @@ func (d *Decoder) event(b []byte) (Event, *RejectError) {
 	if raw[fieldCurrency], rej = d.optionalString(b, fieldCurrency); rej != nil {
 		return Event{}, rej
 	}
-	if rej = checkName(fieldCurrency, raw[fieldCurrency], d.lim.MaxName); rej != nil {
+	if rej = checkName(fieldCurrency, raw[fieldCurrency], d.members[fieldCurrency].flags, d.lim.MaxName); rej != nil {
 		return Event{}, rej
 	}
 	sameCurrency := len(raw[fieldCurrency]) > 0 && string(raw[fieldCurrency]) == d.currency
@@ -340,7 +342,7 @@ func (d *Decoder) optionalString(b []byte, f field) ([]byte, *RejectError) {
 // that costs an allocation).
 func (d *Decoder) text(b []byte, m member) []byte {
 	s := b[m.start:m.end]
-	if m.escaped {
+	if m.flags&escapedString != 0 {
 		return unescape(make([]byte, 0, len(s)), s)
 	}
 	return s
@@ -364,10 +366,15 @@ func (d *Decoder) value(b []byte) (micro int64, has bool, rej *RejectError) {
 }
 
 // checkName enforces a string field's length limit and bans control
-// characters (C0 and DEL): the store uses 0x00 and 0x1f as separators.
-func checkName(f field, s []byte, limit int) *RejectError {
+// characters (C0 and DEL): the store uses 0x00 and 0x1f as separators. Raw
+// C0 bytes are already bad JSON, so only strings flagged by scanString (with
+// escapes or a raw DEL) need a look at every byte.
+func checkName(f field, s []byte, flags uint8, limit int) *RejectError {
 	if len(s) > limit {
 		return rejectField(ReasonBadField, f, fmt.Sprintf("is %d bytes, limit is %d", len(s), limit))
+	}
+	if flags == 0 {
+		return nil
 	}
 	for _, c := range s {
 		if c < 0x20 || c == 0x7f {

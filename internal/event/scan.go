@@ -37,8 +37,8 @@ func (t valueType) String() string {
 // member is where a known field's value lies in the payload.
 type member struct {
 	typ        valueType
-	escaped    bool // a string holding escapes; its text needs unescape
-	start, end int  // string content without quotes, or number text
+	flags      uint8 // a string's flags from scanString
+	start, end int   // string content without quotes, or number text
 }
 
 // syntaxError says where and why a payload is not valid JSON. The zero value

@@ -37,7 +37,7 @@ func WriteJSON(w io.Writer, v any) error {
 	return enc.Encode(v)
 }
 
-func f2(x float64) string { return strconv.FormatFloat(x, 'f', 2, 64) }
+func f2(x float64) string  { return strconv.FormatFloat(x, 'f', 2, 64) }
 func pct(x float64) string { return strconv.FormatFloat(100*x, 'f', 1, 64) + "%" }
 func signed(x float64) string {
 	if x > 0 {
@@ -220,8 +220,6 @@ func spark(x float64) rune {
 	}
 	return blocks[i]
 }
-
-
 
 // WriteStatus writes a status summary.
 func WriteStatus(w io.Writer, s Summary, p Plan, f Format) error {
