@@ -3,6 +3,7 @@ package event
 import (
 	"bytes"
 	"fmt"
+	"strings"
 	"time"
 )
 
@@ -66,7 +67,6 @@ type Decoder struct {
 	members   [numFields]member // the known fields of the current payload
 	duplicate field             // first known field seen twice, or noField
 	key       []byte            // an object key with escapes, unescaped
-	strs      []byte            // the Event's strings, concatenated before the one copy
 }
 
 // NewDecoder returns a decoder that enforces lim and, when currency is not
@@ -214,10 +214,10 @@ func (d *Decoder) event(b []byte) (Event, *RejectError) {
 			return Event{}, rej
 		}
 	}
-	if rej = checkName(fieldID, raw[fieldID], d.members[fieldID].flags, d.lim.MaxID); rej != nil {
+	if rej = d.checkName(fieldID, raw[fieldID], d.lim.MaxID); rej != nil {
 		return Event{}, rej
 	}
-	if rej = checkName(fieldUser, raw[fieldUser], d.members[fieldUser].flags, d.lim.MaxUser); rej != nil {
+	if rej = d.checkName(fieldUser, raw[fieldUser], d.lim.MaxUser); rej != nil {
 		return Event{}, rej
 	}
 	at, rej := parseTime(raw[fieldTime])
@@ -232,13 +232,13 @@ func (d *Decoder) event(b []byte) (Event, *RejectError) {
 		if raw[fieldChannel], rej = d.requiredString(b, fieldChannel); rej != nil {
 			return Event{}, rej
 		}
-		if rej = checkName(fieldChannel, raw[fieldChannel], d.members[fieldChannel].flags, d.lim.MaxName); rej != nil {
+		if rej = d.checkName(fieldChannel, raw[fieldChannel], d.lim.MaxName); rej != nil {
 			return Event{}, rej
 		}
 		if raw[fieldCampaign], rej = d.optionalString(b, fieldCampaign); rej != nil {
 			return Event{}, rej
 		}
-		if rej = checkName(fieldCampaign, raw[fieldCampaign], d.members[fieldCampaign].flags, d.lim.MaxName); rej != nil {
+		if rej = d.checkName(fieldCampaign, raw[fieldCampaign], d.lim.MaxName); rej != nil {
 			return Event{}, rej
 		}
 		interaction, rej := d.optionalString(b, fieldInteraction)
@@ -258,7 +258,7 @@ func (d *Decoder) event(b []byte) (Event, *RejectError) {
 		if raw[fieldAction], rej = d.requiredString(b, fieldAction); rej != nil {
 			return Event{}, rej
 		}
-		if rej = checkName(fieldAction, raw[fieldAction], d.members[fieldAction].flags, d.lim.MaxName); rej != nil {
+		if rej = d.checkName(fieldAction, raw[fieldAction], d.lim.MaxName); rej != nil {
 			return Event{}, rej
 		}
 		if ev.Value, ev.HasValue, rej = d.value(b); rej != nil {
@@ -271,7 +271,7 @@ func (d *Decoder) event(b []byte) (Event, *RejectError) {
 	if raw[fieldCurrency], rej = d.optionalString(b, fieldCurrency); rej != nil {
 		return Event{}, rej
 	}
-	if rej = checkName(fieldCurrency, raw[fieldCurrency], d.members[fieldCurrency].flags, d.lim.MaxName); rej != nil {
+	if rej = d.checkName(fieldCurrency, raw[fieldCurrency], d.lim.MaxName); rej != nil {
 		return Event{}, rej
 	}
 	sameCurrency := len(raw[fieldCurrency]) > 0 && string(raw[fieldCurrency]) == d.currency
@@ -281,17 +281,24 @@ func (d *Decoder) event(b []byte) (Event, *RejectError) {
 	}
 
 	// One allocation holds every string of the event.
-	d.strs = d.strs[:0]
-	for _, f := range [...]field{fieldID, fieldUser, fieldChannel, fieldCampaign, fieldAction} {
-		d.strs = append(d.strs, raw[f]...)
-	}
+	n := len(raw[fieldID]) + len(raw[fieldUser]) + len(raw[fieldChannel]) + len(raw[fieldCampaign]) + len(raw[fieldAction])
 	if !sameCurrency {
-		d.strs = append(d.strs, raw[fieldCurrency]...)
+		n += len(raw[fieldCurrency])
 	}
-	all := string(d.strs)
+	var all strings.Builder
+	all.Grow(n)
+	all.Write(raw[fieldID])
+	all.Write(raw[fieldUser])
+	all.Write(raw[fieldChannel])
+	all.Write(raw[fieldCampaign])
+	all.Write(raw[fieldAction])
+	if !sameCurrency {
+		all.Write(raw[fieldCurrency])
+	}
+	rest := all.String()
 	next := func(f field) string {
-		s := all[:len(raw[f])]
-		all = all[len(raw[f]):]
+		s := rest[:len(raw[f])]
+		rest = rest[len(raw[f]):]
 		return s
 	}
 	ev.ID = next(fieldID)
@@ -369,11 +376,11 @@ func (d *Decoder) value(b []byte) (micro int64, has bool, rej *RejectError) {
 // characters (C0 and DEL): the store uses 0x00 and 0x1f as separators. Raw
 // C0 bytes are already bad JSON, so only strings flagged by scanString (with
 // escapes or a raw DEL) need a look at every byte.
-func checkName(f field, s []byte, flags uint8, limit int) *RejectError {
+func (d *Decoder) checkName(f field, s []byte, limit int) *RejectError {
 	if len(s) > limit {
 		return rejectField(ReasonBadField, f, fmt.Sprintf("is %d bytes, limit is %d", len(s), limit))
 	}
-	if flags == 0 {
+	if d.members[f].flags == 0 {
 		return nil
 	}
 	for _, c := range s {
@@ -387,66 +394,115 @@ func checkName(f field, s []byte, flags uint8, limit int) *RejectError {
 // parseTime parses an RFC 3339 time with a zone (Z or an offset) and returns
 // it in UTC.
 func parseTime(s []byte) (time.Time, *RejectError) {
-	if !rfc3339Shape(s) {
+	t, ok := parseRFC3339(s)
+	if !ok {
 		return time.Time{}, rejectField(ReasonBadTime, fieldTime, "is not an rfc 3339 time with a zone")
 	}
-	// ParseInLocation with UTC never consults the machine's local zone.
-	t, err := time.ParseInLocation(time.RFC3339Nano, string(s), time.UTC)
-	if err != nil {
-		return time.Time{}, rejectField(ReasonBadTime, fieldTime, "is not an rfc 3339 time with a zone")
-	}
-	t = t.UTC()
 	if t.Before(earliest) || t.After(latest) {
 		return time.Time{}, rejectField(ReasonBadTime, fieldTime, "is outside 1677-09-21 to 2262-04-11 (int64 unix nanoseconds)")
 	}
 	return t, nil
 }
 
-// rfc3339Shape reports whether s has the shape of an RFC 3339 date-time
-// (section 5.6): "2006-01-02T15:04:05", an optional "." and digits, then "Z"
-// or "+hh:mm"/"-hh:mm" with hh ≤ 23 and mm ≤ 59. time.Parse alone also takes
-// a comma before the fraction, one-digit hours and offsets up to 24:00;
-// calendar ranges (month 1-12, day of month, hour, minute, second) are left
-// to time.Parse. Like time.Parse, the T and Z must be upper case.
-func rfc3339Shape(s []byte) bool {
-	const date = "dddd-dd-ddTdd:dd:dd"
-	if len(s) < len(date)+1 {
-		return false
+// parseRFC3339 reads an RFC 3339 date-time (section 5.6):
+// "2006-01-02T15:04:05", an optional "." and digits, then "Z" or "+hh:mm" /
+// "-hh:mm" with hh ≤ 23 and mm ≤ 59. It gives the same instant as
+// time.Parse(time.RFC3339Nano, s) on every input both accept (the tests
+// compare them): upper-case T and Z only, no leap second, fraction digits
+// after the ninth ignored. It is stricter than time.Parse, which also takes
+// a comma before the fraction, one-digit hours and offsets up to 24:00, and
+// it never consults the machine's local zone.
+func parseRFC3339(s []byte) (time.Time, bool) {
+	if len(s) < len("2006-01-02T15:04:05Z") ||
+		s[4] != '-' || s[7] != '-' || s[10] != 'T' || s[13] != ':' || s[16] != ':' {
+		return time.Time{}, false
 	}
-	for i := 0; i < len(date); i++ {
-		if date[i] == 'd' {
-			if s[i] < '0' || s[i] > '9' {
-				return false
-			}
-		} else if s[i] != date[i] {
-			return false
-		}
+	century, year2 := digits2(s, 0), digits2(s, 2)
+	month, day := digits2(s, 5), digits2(s, 8)
+	hour, minute, second := digits2(s, 11), digits2(s, 14), digits2(s, 17)
+	if century < 0 || year2 < 0 || hour < 0 || hour > 23 || minute < 0 || minute > 59 || second < 0 || second > 59 {
+		return time.Time{}, false
 	}
-	s = s[len(date):]
-	if s[0] == '.' {
+	year := century*100 + year2
+	if month < 1 || month > 12 || day < 1 || day > daysIn(year, month) {
+		return time.Time{}, false
+	}
+	rest := s[19:]
+	nsec := 0
+	if rest[0] == '.' {
 		n := 1
-		for n < len(s) && s[n] >= '0' && s[n] <= '9' {
-			n++
+		for ; n < len(rest) && rest[n] >= '0' && rest[n] <= '9'; n++ {
+			if n <= 9 {
+				nsec = nsec*10 + int(rest[n]-'0')
+			}
 		}
 		if n == 1 {
-			return false
+			return time.Time{}, false
 		}
-		s = s[n:]
-	}
-	if len(s) == 1 {
-		return s[0] == 'Z'
-	}
-	if len(s) != len("+07:00") || (s[0] != '+' && s[0] != '-') || s[3] != ':' {
-		return false
-	}
-	for _, i := range [...]int{1, 2, 4, 5} {
-		if s[i] < '0' || s[i] > '9' {
-			return false
+		for k := n; k <= 9; k++ {
+			nsec *= 10
 		}
+		rest = rest[n:]
 	}
-	hh := int(s[1]-'0')*10 + int(s[2]-'0')
-	mm := int(s[4]-'0')*10 + int(s[5]-'0')
-	return hh <= 23 && mm <= 59
+	offset := 0
+	switch {
+	case len(rest) == 1 && rest[0] == 'Z':
+	case len(rest) == 6 && (rest[0] == '+' || rest[0] == '-') && rest[3] == ':':
+		hh, mm := digits2(rest, 1), digits2(rest, 4)
+		if hh < 0 || hh > 23 || mm < 0 || mm > 59 {
+			return time.Time{}, false
+		}
+		offset = (hh*60 + mm) * 60
+		if rest[0] == '-' {
+			offset = -offset
+		}
+	default:
+		return time.Time{}, false
+	}
+	secs := daysSinceEpoch(year, month, day)*86400 + int64(hour*3600+minute*60+second-offset)
+	return time.Unix(secs, int64(nsec)).UTC(), true
+}
+
+// digits2 returns the two-digit number at s[i:], or -1.
+func digits2(s []byte, i int) int {
+	a, b := s[i]-'0', s[i+1]-'0' // wraps around for bytes below '0'
+	if a > 9 || b > 9 {
+		return -1
+	}
+	return int(a)*10 + int(b)
+}
+
+// daysIn returns the number of days in month of year (proleptic Gregorian).
+func daysIn(year, month int) int {
+	switch month {
+	case 2:
+		if year%4 == 0 && (year%100 != 0 || year%400 == 0) {
+			return 29
+		}
+		return 28
+	case 4, 6, 9, 11:
+		return 30
+	}
+	return 31
+}
+
+// daysSinceEpoch returns the days from 1970-01-01 to the date (proleptic
+// Gregorian, year ≥ 0). Formula: Hinnant, "chrono-Compatible Low-Level Date
+// Algorithms", days_from_civil (howardhinnant.github.io/date_algorithms.html,
+// from memory; the tests compare it with the time package).
+func daysSinceEpoch(year, month, day int) int64 {
+	if month <= 2 {
+		year--
+	}
+	era := year / 400
+	if year < 0 {
+		era = (year - 399) / 400
+	}
+	yearOfEra := year - era*400                                         // [0, 399]
+	shifted := (month + 9) % 12                                         // March = 0 … February = 11
+	dayOfYear := (153*shifted+2)/5 + day - 1                            // [0, 365]
+	dayOfEra := yearOfEra*365 + yearOfEra/4 - yearOfEra/100 + dayOfYear // [0, 146096]
+	return int64(era)*146097 + int64(dayOfEra) - 719468
 }
 
 // microUnits converts the text of a JSON number (RFC 8259 grammar, already

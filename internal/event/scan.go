@@ -120,10 +120,11 @@ func unexpected(b []byte, i int, want string) syntaxError {
 // opening quote) and returns the index after the closing quote and its flags.
 func scanString(b []byte, i int) (end int, flags uint8, bad syntaxError) {
 	for {
+		// Skip plain bytes eight at a time, then one at a time near the end.
 		for i+8 <= len(b) {
 			if m := specialBytes(binary.LittleEndian.Uint64(b[i:])) & highs; m != 0 {
 				i += bits.TrailingZeros64(m) / 8
-				break
+				goto special
 			}
 			i += 8
 		}
@@ -133,6 +134,7 @@ func scanString(b []byte, i int) (end int, flags uint8, bad syntaxError) {
 		if i >= len(b) {
 			return i, flags, syntaxError{at: i, what: "unterminated string"}
 		}
+	special:
 		switch c := b[i]; {
 		case c == '"':
 			return i + 1, flags, syntaxError{}

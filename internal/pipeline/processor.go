@@ -189,8 +189,13 @@ func (p *Processor) Watermark() (wm, maxSeen int64) {
 // validated then, so it decodes again.
 func (p *Processor) Readmit(ctx context.Context, pos uint64, payload []byte) error {
 	e, err := p.dec.Decode(payload)
-	if err != nil {
-		return fmt.Errorf("pipeline: buffered input %d no longer decodes (input changed since it was read?): %w", pos, err)
+	return p.ReadmitDecoded(pos, &e, err)
+}
+
+// ReadmitDecoded is Readmit for an input decoded by the caller.
+func (p *Processor) ReadmitDecoded(pos uint64, e *event.Event, decodeErr error) error {
+	if decodeErr != nil {
+		return fmt.Errorf("pipeline: buffered input %d no longer decodes (input changed since it was read?): %w", pos, decodeErr)
 	}
 	p.reorder.Readmit(e, pos)
 	return nil
@@ -198,14 +203,24 @@ func (p *Processor) Readmit(ctx context.Context, pos uint64, payload []byte) err
 
 // Offer processes one new input at position pos (positions increase).
 func (p *Processor) Offer(ctx context.Context, pos uint64, payload []byte) error {
+	e, err := p.dec.Decode(payload)
+	return p.OfferDecoded(ctx, pos, payload, &e, err)
+}
+
+// NewDecoder returns a decoder configured like the processor's, for callers
+// that decode on another goroutine and use OfferDecoded.
+func (p *Processor) NewDecoder() *event.Decoder { return event.NewDecoder(p.cfg.Limits, p.cfg.Currency) }
+
+// OfferDecoded is Offer for an input the caller decoded with a decoder from
+// NewDecoder (decodeErr is its error). payload must stay valid during the call.
+func (p *Processor) OfferDecoded(ctx context.Context, pos uint64, payload []byte, e *event.Event, decodeErr error) error {
 	if pos+1 > p.ckpt.Next {
 		p.ckpt.Next = pos + 1
 	}
-	e, err := p.dec.Decode(payload)
-	if err != nil {
+	if decodeErr != nil {
 		var re *event.RejectError
-		if !errors.As(err, &re) {
-			return fmt.Errorf("pipeline: decode input %d: %w", pos, err)
+		if !errors.As(decodeErr, &re) {
+			return fmt.Errorf("pipeline: decode input %d: %w", pos, decodeErr)
 		}
 		if err := p.reject(pos, re.Reason, re.Error(), payload); err != nil {
 			return err
@@ -256,7 +271,7 @@ func (p *Processor) rejectRecord(pos uint64, r event.Reason, msg string, payload
 
 func (p *Processor) release() error {
 	var ferr error
-	p.reorder.Release(func(it sessionize.Item) {
+	p.reorder.Release(func(it *sessionize.Item) {
 		if ferr == nil {
 			ferr = p.apply(&it.Event)
 		}
@@ -323,7 +338,7 @@ func (p *Processor) needCommit() bool {
 func (p *Processor) Finish(ctx context.Context, drain bool) error {
 	if drain {
 		var ferr error
-		p.reorder.Drain(func(it sessionize.Item) {
+		p.reorder.Drain(func(it *sessionize.Item) {
 			if ferr == nil {
 				ferr = p.apply(&it.Event)
 			}

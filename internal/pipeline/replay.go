@@ -22,6 +22,9 @@ import (
 // line longer than maxPayload is cut to maxPayload+1 bytes before it is
 // offered, so it is rejected as too_large without holding it in memory.
 // Input compressed with gzip is recognised by its magic bytes.
+//
+// Reading and decoding run on their own goroutine, in chunks, ahead of the
+// processing goroutine.
 func Replay(ctx context.Context, p *Processor, source string, r io.Reader, maxPayload int) (Checkpoint, error) {
 	cp, err := p.Begin(source)
 	if err != nil {
@@ -40,47 +43,122 @@ func Replay(ctx context.Context, p *Processor, source string, r io.Reader, maxPa
 	for _, pos := range cp.Pending {
 		pending[pos] = true
 	}
-	var (
-		pos  uint64
-		line []byte
-	)
-	for {
-		if pos&4095 == 0 {
-			if err := ctx.Err(); err != nil {
+	ctx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	full := make(chan *chunk, 4)
+	free := make(chan *chunk, 6)
+	for range cap(free) {
+		free <- &chunk{}
+	}
+	go readChunks(ctx, br, p.NewDecoder(), cp.Next, pending, maxPayload, full, free)
+	for c := range full {
+		if c.err != nil {
+			return Checkpoint{}, fmt.Errorf("replay %s: %w", source, c.err)
+		}
+		for i := range c.items {
+			it := &c.items[i]
+			payload := c.buf[it.off:it.end]
+			if it.readmit {
+				err = p.ReadmitDecoded(it.pos, &it.ev, it.err)
+			} else {
+				err = p.OfferDecoded(ctx, it.pos, payload, &it.ev, it.err)
+			}
+			if err != nil {
 				return Checkpoint{}, err
 			}
 		}
+		free <- c
+	}
+	if err := ctx.Err(); err != nil {
+		return Checkpoint{}, err
+	}
+	if err := p.Finish(ctx, true); err != nil {
+		return Checkpoint{}, err
+	}
+	return p.ckpt, nil
+}
+
+const chunkLines = 512
+
+type chunkItem struct {
+	pos      uint64
+	off, end int
+	ev       event.Event
+	err      error
+	readmit  bool
+}
+
+type chunk struct {
+	buf   []byte
+	items []chunkItem
+	err   error
+}
+
+// readChunks reads lines, skips those committed before, decodes the rest and
+// sends them in chunks. It closes full when the input ends or fails.
+func readChunks(ctx context.Context, br *bufio.Reader, dec *event.Decoder, next uint64, pending map[uint64]bool,
+	maxPayload int, full chan<- *chunk, free <-chan *chunk) {
+	defer close(full)
+	var (
+		pos  uint64
+		line []byte
+		c    *chunk
+	)
+	get := func() bool {
+		select {
+		case c = <-free:
+			c.buf, c.items, c.err = c.buf[:0], c.items[:0], nil
+			return true
+		case <-ctx.Done():
+			return false
+		}
+	}
+	if !get() {
+		return
+	}
+	for {
+		var err error
 		line, err = readLine(br, line[:0], maxPayload)
 		if len(line) == 0 && err != nil {
-			if errors.Is(err, io.EOF) {
-				break
+			if !errors.Is(err, io.EOF) {
+				c.err = fmt.Errorf("line %d: %w", pos+1, err)
 			}
-			return Checkpoint{}, fmt.Errorf("replay %s: line %d: %w", source, pos+1, err)
+			break
 		}
 		pos++
 		payload := bytes.TrimSpace(line)
 		if len(payload) == 0 {
 			continue
 		}
-		if pos < cp.Next {
-			if pending[pos] {
-				if err := p.Readmit(ctx, pos, payload); err != nil {
-					return Checkpoint{}, err
-				}
+		readmit := false
+		if pos < next {
+			if !pending[pos] {
+				continue
 			}
-			continue
+			readmit = true
 		}
-		if err := p.Offer(ctx, pos, payload); err != nil {
-			return Checkpoint{}, err
+		off := len(c.buf)
+		c.buf = append(c.buf, payload...)
+		ev, derr := dec.Decode(payload)
+		c.items = append(c.items, chunkItem{pos: pos, off: off, end: len(c.buf), ev: ev, err: derr, readmit: readmit})
+		if len(c.items) == chunkLines {
+			select {
+			case full <- c:
+			case <-ctx.Done():
+				return
+			}
+			if !get() {
+				return
+			}
 		}
 		if errors.Is(err, io.EOF) {
 			break
 		}
 	}
-	if err := p.Finish(ctx, true); err != nil {
-		return Checkpoint{}, err
+	select {
+	case full <- c:
+	case <-ctx.Done():
 	}
-	return p.ckpt, nil
 }
 
 // readLine reads one line without its newline into dst, keeping at most

@@ -1,8 +1,6 @@
 package sessionize
 
 import (
-	"container/heap"
-
 	"github.com/touchledger/touchledger/internal/event"
 )
 
@@ -24,13 +22,26 @@ type Item struct {
 // Invariant: every released event has time < watermark, and every event still
 // buffered has time >= watermark; released events are ordered by
 // (time, arrival).
+//
+// Events live in a slab and the heap orders small (time, arrival, slot)
+// entries, so buffering allocates nothing once the slab has grown.
 type Reorder struct {
 	lateness int64 // nanoseconds
 	maxSeen  int64 // largest event time seen, Unix nanoseconds; minInt64 before any
 	floor    int64 // lower bound for the watermark (after a drain)
 	seq      uint64
-	h        itemHeap
+	slab     []Item
+	free     []int32
+	h        []slot
 }
+
+type slot struct {
+	t   int64
+	seq uint64
+	i   int32
+}
+
+func (a slot) less(b slot) bool { return a.t < b.t || (a.t == b.t && a.seq < b.seq) }
 
 const minInt64 = -1 << 63
 
@@ -67,37 +78,90 @@ func (r *Reorder) Late(unixNano int64) bool { return unixNano < r.Watermark() }
 
 // Push adds an event that is not late and advances the watermark. It does not
 // release anything; call Release.
-func (r *Reorder) Push(e event.Event, pos uint64) {
+func (r *Reorder) Push(e *event.Event, pos uint64) {
 	t := e.Time.UnixNano()
 	if t > r.maxSeen {
 		r.maxSeen = t
 	}
-	r.seq++
-	heap.Push(&r.h, Item{Event: e, Pos: pos, t: e.Time.UnixNano(), seq: r.seq})
+	r.add(e, pos, t)
 }
 
 // Readmit puts back an event that was buffered when the state was committed,
 // without moving the watermark (it was counted then).
-func (r *Reorder) Readmit(e event.Event, pos uint64) {
+func (r *Reorder) Readmit(e *event.Event, pos uint64) { r.add(e, pos, e.Time.UnixNano()) }
+
+func (r *Reorder) add(e *event.Event, pos uint64, t int64) {
+	var i int32
+	if n := len(r.free); n > 0 {
+		i = r.free[n-1]
+		r.free = r.free[:n-1]
+	} else {
+		r.slab = append(r.slab, Item{})
+		i = int32(len(r.slab) - 1)
+	}
 	r.seq++
-	heap.Push(&r.h, Item{Event: e, Pos: pos, t: e.Time.UnixNano(), seq: r.seq})
+	r.slab[i] = Item{Event: *e, Pos: pos, t: t, seq: r.seq}
+	r.h = append(r.h, slot{t, r.seq, i})
+	r.up(len(r.h) - 1)
+}
+
+// pop removes the earliest event; fn gets a pointer valid until the next call.
+func (r *Reorder) pop() *Item {
+	top := r.h[0]
+	n := len(r.h) - 1
+	r.h[0] = r.h[n]
+	r.h = r.h[:n]
+	if n > 0 {
+		r.down(0)
+	}
+	r.free = append(r.free, top.i)
+	return &r.slab[top.i]
+}
+
+func (r *Reorder) up(j int) {
+	for j > 0 {
+		i := (j - 1) / 2
+		if !r.h[j].less(r.h[i]) {
+			break
+		}
+		r.h[i], r.h[j] = r.h[j], r.h[i]
+		j = i
+	}
+}
+
+func (r *Reorder) down(i int) {
+	n := len(r.h)
+	for {
+		j := 2*i + 1
+		if j >= n {
+			return
+		}
+		if k := j + 1; k < n && r.h[k].less(r.h[j]) {
+			j = k
+		}
+		if !r.h[j].less(r.h[i]) {
+			return
+		}
+		r.h[i], r.h[j] = r.h[j], r.h[i]
+		i = j
+	}
 }
 
 // Release calls fn, in event-time order, for every buffered event older than
-// the watermark.
-func (r *Reorder) Release(fn func(Item)) {
+// the watermark. The item is only valid during the call.
+func (r *Reorder) Release(fn func(*Item)) {
 	w := r.Watermark()
 	for len(r.h) > 0 && r.h[0].t < w {
-		fn(heap.Pop(&r.h).(Item))
+		fn(r.pop())
 	}
 }
 
 // Drain releases every buffered event in order and raises the watermark floor
 // to the largest event time seen, so that nothing older can be accepted later
 // (end of a replay: the input is complete).
-func (r *Reorder) Drain(fn func(Item)) {
+func (r *Reorder) Drain(fn func(*Item)) {
 	for len(r.h) > 0 {
-		fn(heap.Pop(&r.h).(Item))
+		fn(r.pop())
 	}
 	if r.maxSeen > r.floor {
 		r.floor = r.maxSeen
@@ -109,28 +173,8 @@ func (r *Reorder) Len() int { return len(r.h) }
 
 // Positions appends the input positions of the buffered events to dst.
 func (r *Reorder) Positions(dst []uint64) []uint64 {
-	for _, it := range r.h {
-		dst = append(dst, it.Pos)
+	for _, s := range r.h {
+		dst = append(dst, r.slab[s.i].Pos)
 	}
 	return dst
-}
-
-type itemHeap []Item
-
-func (h itemHeap) Len() int { return len(h) }
-func (h itemHeap) Less(i, j int) bool {
-	if h[i].t != h[j].t {
-		return h[i].t < h[j].t
-	}
-	return h[i].seq < h[j].seq
-}
-func (h itemHeap) Swap(i, j int) { h[i], h[j] = h[j], h[i] }
-func (h *itemHeap) Push(x any)   { *h = append(*h, x.(Item)) }
-func (h *itemHeap) Pop() any {
-	old := *h
-	n := len(old)
-	it := old[n-1]
-	old[n-1] = Item{}
-	*h = old[:n-1]
-	return it
 }
