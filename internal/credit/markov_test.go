@@ -499,7 +499,12 @@ func powerConversion(counts []TransitionCount, removed func(state string) bool) 
 func randomCounts(r *rand.Rand, channels, order, states int) []TransitionCount {
 	names := []string{StateStart}
 	seen := map[string]bool{}
-	for len(names) < states+1 {
+	possible, power := 0, 1
+	for range order {
+		power *= channels
+		possible += power
+	}
+	for len(names) < min(states, possible)+1 {
 		k := 1 + r.IntN(order)
 		tuple := make([]string, k)
 		for i := range tuple {

@@ -1,0 +1,15 @@
+#!/usr/bin/env bash
+# Quick start: generate the invented shop's events, replay them into a fresh
+# data directory and show channel credit. Needs only Go; no server.
+set -euo pipefail
+cd "$(dirname "$0")/.."
+dir=${1:-./tl-data}
+mkdir -p "$dir"
+go run ./cmd/demo --out "$dir/demo-events.jsonl"
+go run ./cmd/ingest --data "$dir/store" --replay "$dir/demo-events.jsonl" --rejects "$dir/rejects.jsonl"
+echo
+go run ./cmd/query credit --data "$dir/store" --model linear --last 28d --chart
+echo
+go run ./cmd/query credit --data "$dir/store" --model position-based --last 7d
+echo
+go run ./cmd/query shift --data "$dir/store" --model linear --days 7
