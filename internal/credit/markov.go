@@ -145,36 +145,41 @@ func (ch *chain) removalEffects(dense int) (MarkovResult, error) {
 	if ch.n == 0 {
 		return res, ErrNoConversionPath
 	}
-	s := newSolver(ch, dense)
-	full := make([]float64, ch.n)
-	if err := s.solve(full, nil, nil); err != nil {
+	// One removal system per channel that occurs in a kept state; the
+	// others cannot change P, their removal effect is 0.
+	var removals [][]int32
+	system := make([]int, len(ch.channels))
+	for c, states := range ch.statesOf {
+		system[c] = -1
+		if len(states) > 0 {
+			system[c] = len(removals)
+			removals = append(removals, states)
+		}
+	}
+	var p float64
+	var pRemoved []float64
+	var err error
+	if ch.n > dense {
+		p, pRemoved, err = ch.sweepProbabilities(removals)
+	} else {
+		p, pRemoved, err = ch.denseProbabilities(removals)
+	}
+	if err != nil {
 		return res, err
 	}
-	p := full[0]
 	res.PConversion = p
 	if !(p > 0) {
 		res.PConversion = 0
 		return res, ErrNoConversionPath
 	}
-	removed := make([]bool, ch.n)
-	x := make([]float64, ch.n)
 	var sum float64
-	for c, states := range ch.statesOf {
-		if len(states) == 0 {
-			continue // the channel only appears in states that cannot reach conversion
+	for c, j := range system {
+		if j < 0 {
+			continue
 		}
-		for _, st := range states {
-			removed[st] = true
-		}
-		if err := s.solve(x, removed, full); err != nil {
-			return res, fmt.Errorf("remove channel %q: %w", ch.channels[c], err)
-		}
-		for _, st := range states {
-			removed[st] = false
-		}
-		re := 1 - x[0]/p
-		// P_{−c} <= P holds exactly; the solvers' rounding and tolerance can
-		// leave a removal effect a hair outside [0, 1].
+		re := 1 - pRemoved[j]/p
+		// P_{−c} <= P holds exactly; rounding and the iterative solver's
+		// tolerance can leave a removal effect a hair outside [0, 1].
 		re = min(max(re, 0), 1)
 		if re < reFloor {
 			re = 0
@@ -190,6 +195,35 @@ func (ch *chain) removalEffects(dense int) (MarkovResult, error) {
 		res.Share[c] = re / sum
 	}
 	return res, nil
+}
+
+// denseProbabilities returns P(CONVERSION | START) without removal and with
+// each removal set, one gonum LU solve per system.
+func (ch *chain) denseProbabilities(removals [][]int32) (float64, []float64, error) {
+	s := newSolver(ch, ch.n)
+	x := make([]float64, ch.n)
+	if err := s.solve(x, nil); err != nil {
+		return 0, nil, err
+	}
+	p := x[0]
+	out := make([]float64, len(removals))
+	if !(p > 0) {
+		return 0, out, nil
+	}
+	removed := make([]bool, ch.n)
+	for j, set := range removals {
+		for _, st := range set {
+			removed[st] = true
+		}
+		if err := s.solve(x, removed); err != nil {
+			return 0, nil, fmt.Errorf("removal %d of %d: %w", j+1, len(removals), err)
+		}
+		for _, st := range set {
+			removed[st] = false
+		}
+		out[j] = x[0]
+	}
+	return p, out, nil
 }
 
 // reFloor: removal effects below it are within the solvers' error of zero

@@ -310,7 +310,7 @@ func TestMarkovFundamentalMatrix(t *testing.T) {
 					}
 				}
 				x := make([]float64, ch.n)
-				if err := newSolver(ch, mode.dense).solve(x, nil, nil); err != nil {
+				if err := newSolver(ch, mode.dense).solve(x, nil); err != nil {
 					t.Fatal(err)
 				}
 				for i, s := range tt.states {
@@ -361,7 +361,7 @@ func TestMarkovStackExchangeRemoval(t *testing.T) {
 			removed := make([]bool, ch.n)
 			removed[slices.Index(ch.names, notif)] = true
 			x := make([]float64, ch.n)
-			if err := newSolver(ch, mode.dense).solve(x, removed, nil); err != nil {
+			if err := newSolver(ch, mode.dense).solve(x, removed); err != nil {
 				t.Fatal(err)
 			}
 			if want := 5.0 / 44; !near(x[0], want, 1e-12) {
@@ -453,7 +453,7 @@ func TestMarkovCollapseOrder1(t *testing.T) {
 // powerConversion is an independent reference: it builds the full
 // transition matrix straight from the counts (absorbing CONVERSION and NULL,
 // every transition into a removed state redirected to NULL), squares it
-// until P^(2^k) settles and reads P^∞[START][CONVERSION]. It shares no code
+// 60 times and reads P^∞[START][CONVERSION]. It shares no code
 // with buildChain or the solvers.
 func powerConversion(counts []TransitionCount, removed func(state string) bool) float64 {
 	idx := map[string]int{StateStart: 0, StateConversion: 1, StateNull: 2}
@@ -480,16 +480,17 @@ func powerConversion(counts []TransitionCount, removed func(state string) bool) 
 	}
 	p.Set(1, 1, 1)
 	p.Set(2, 2, 1)
+	// 2^60 steps: far beyond the length of any journey in these tests. The
+	// value must have settled between 2^59 and 2^60 steps.
 	var sq mat.Dense
-	prev := -1.0
-	for range 200 {
+	var before float64
+	for range 60 {
+		before = p.At(0, 1)
 		sq.Mul(p, p)
 		p.Copy(&sq)
-		if v := p.At(0, 1); v == prev {
-			break
-		} else {
-			prev = v
-		}
+	}
+	if math.Abs(p.At(0, 1)-before) > 1e-15 {
+		return math.NaN() // not settled: fail the comparison
 	}
 	return p.At(0, 1)
 }

@@ -506,12 +506,13 @@ func daysSinceEpoch(year, month, day int) int64 {
 }
 
 // microUnits converts the text of a JSON number (RFC 8259 grammar, already
-// validated) to micro-units, exactly from its decimal digits, rounding half
-// away from zero at the seventh decimal. This equals
-// int64(math.Round(v*1e6)) for the float64 v of the text wherever float64
-// holds enough digits, and stays exact where it does not (values above about
-// 4.5e9 with six decimals). ok is false for a value below 0 or above
-// MaxValue; negative zero is 0.
+// checked) to micro-units, exactly from its decimal digits, rounding half away
+// from zero at the seventh decimal. This equals int64(math.Round(v*1e6)) on
+// the float64 v of the text for every value with at most six decimals below
+// 2^51 micro-units (about 2.25e9 currency units); beyond that, and on exact
+// ties at the seventh decimal, the float product can be one micro-unit off
+// and this stays exact. ok is false for a value below 0 or above MaxValue;
+// negative zero is 0.
 func microUnits(num []byte) (micro int64, ok bool) {
 	negative := num[0] == '-'
 	if negative {

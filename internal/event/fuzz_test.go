@@ -1,6 +1,7 @@
 package event
 
 import (
+	"bytes"
 	"encoding/json"
 	"errors"
 	"fmt"
@@ -13,10 +14,12 @@ import (
 
 // FuzzDecode checks, for any input: Decode does not panic; it returns either
 // an event or a *RejectError with a known reason; what it accepts is valid
-// JSON and UTF-8 by the standard library's reading; an accepted event meets
-// the invariants in doc.go; re-encoded with encoding/json it decodes to the
-// same Event; and a decoder with a configured currency accepts it exactly
-// when its currency is empty or the same.
+// JSON and UTF-8 by the standard library's reading, and its fields are what
+// encoding/json, time.Parse and exact rational arithmetic (math/big) read
+// from the payload; an accepted event meets the invariants in doc.go;
+// re-encoded with encoding/json it decodes to the same Event; and a decoder
+// with a configured currency accepts it exactly when its currency is empty
+// or the same.
 //
 // Seeds live in testdata/fuzz/FuzzDecode. Run: go test -fuzz=FuzzDecode ./internal/event
 func FuzzDecode(f *testing.F) {
@@ -32,6 +35,7 @@ func FuzzDecode(f *testing.F) {
 			t.Fatalf("accepted %q, which encoding/json or utf8 call invalid", payload)
 		}
 		checkInvariants(t, ev)
+		checkAgainstStandardLibrary(t, payload, ev)
 
 		again, err := anyCurrency.Decode(reencode(t, ev))
 		if err != nil {
@@ -137,6 +141,51 @@ func checkInvariants(t *testing.T, ev Event) {
 	}
 	if ev.Time.Location() != time.UTC || time.Unix(0, ev.Time.UnixNano()).UTC() != ev.Time {
 		t.Fatalf("accepted event %+v: time not UTC or without exact unix nanoseconds", ev)
+	}
+}
+
+// checkAgainstStandardLibrary reads an accepted payload with encoding/json
+// and compares every field the event took from it.
+func checkAgainstStandardLibrary(t *testing.T, payload []byte, ev Event) {
+	t.Helper()
+	var fields map[string]any
+	dec := json.NewDecoder(bytes.NewReader(payload))
+	dec.UseNumber()
+	if err := dec.Decode(&fields); err != nil {
+		t.Fatalf("encoding/json cannot read accepted %q: %v", payload, err)
+	}
+	text := func(key string) string {
+		s, _ := fields[key].(string) // absent or null reads as ""
+		return s
+	}
+	want := Event{ID: text("id"), User: text("user"), Kind: ev.Kind, Currency: text("currency")}
+	if text("kind") != ev.Kind.String() {
+		t.Fatalf("kind %q decoded as %v", text("kind"), ev.Kind)
+	}
+	at, ok := referenceTime(text("time"))
+	if !ok {
+		t.Fatalf("time %q accepted, but the reference reading rejects it", text("time"))
+	}
+	want.Time = at
+	switch ev.Kind {
+	case Touch:
+		want.Channel, want.Campaign = text("channel"), text("campaign")
+		if text("interaction") == "view" {
+			want.Interaction = View
+		}
+	case Action:
+		want.Action = text("action")
+		if number, isNumber := fields["value"].(json.Number); isNumber {
+			want.HasValue = true
+			if exponent := strings.IndexAny(string(number), "eE"); exponent >= 0 && len(number)-exponent > 5 {
+				want.Value = ev.Value // an exponent past ±999: math/big would take too long
+			} else {
+				want.Value, _ = exactMicroUnits(t, string(number))
+			}
+		}
+	}
+	if ev != want {
+		t.Fatalf("payload %q\ndecoded   %+v\nreference %+v", payload, ev, want)
 	}
 }
 
