@@ -209,7 +209,9 @@ func (p *Processor) Offer(ctx context.Context, pos uint64, payload []byte) error
 
 // NewDecoder returns a decoder configured like the processor's, for callers
 // that decode on another goroutine and use OfferDecoded.
-func (p *Processor) NewDecoder() *event.Decoder { return event.NewDecoder(p.cfg.Limits, p.cfg.Currency) }
+func (p *Processor) NewDecoder() *event.Decoder {
+	return event.NewDecoder(p.cfg.Limits, p.cfg.Currency)
+}
 
 // OfferDecoded is Offer for an input the caller decoded with a decoder from
 // NewDecoder (decodeErr is its error). payload must stay valid during the call.
