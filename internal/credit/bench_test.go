@@ -1,9 +1,12 @@
 package credit
 
 import (
+	"cmp"
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"slices"
+	"strings"
 	"testing"
 	"time"
 )
@@ -83,6 +86,10 @@ func benchCounts(js []benchJourney, k int) (counts []TransitionCount, events int
 	for t, c := range sum {
 		counts = append(counts, TransitionCount{From: t.From, To: t.To, Count: c})
 	}
+	// Key order, as a sorted store returns them.
+	slices.SortFunc(counts, func(a, b TransitionCount) int {
+		return cmp.Or(strings.Compare(a.From, b.From), strings.Compare(a.To, b.To))
+	})
 	return counts, events
 }
 

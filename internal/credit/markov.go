@@ -274,12 +274,20 @@ func buildChain(counts []TransitionCount) (*chain, error) {
 		return i
 	}
 	edges := make([]edge, 0, len(counts))
+	// Stored counts usually come grouped by source state: remember the
+	// last one to skip its validation and lookup.
+	lastFrom, lastID := "", int32(-1)
 	for _, tc := range counts {
 		if tc.Count < 0 {
 			return nil, fmt.Errorf("markov: transition %s -> %s: negative count %d", label(tc.From), label(tc.To), tc.Count)
 		}
-		if err := checkFrom(tc.From); err != nil {
-			return nil, err
+		from := lastID
+		if from < 0 || tc.From != lastFrom {
+			if err := checkFrom(tc.From); err != nil {
+				return nil, err
+			}
+			from = intern(tc.From)
+			lastFrom, lastID = tc.From, from
 		}
 		to, err := targetOf(tc.To)
 		if err != nil {
@@ -288,7 +296,6 @@ func buildChain(counts []TransitionCount) (*chain, error) {
 		if tc.Count == 0 {
 			continue
 		}
-		from := intern(tc.From)
 		if to == 0 {
 			to = intern(tc.To)
 		}
@@ -296,26 +303,45 @@ func buildChain(counts []TransitionCount) (*chain, error) {
 	}
 	all := len(names)
 
-	// Channels and the order come from every state, kept or not.
-	chanIndex := map[string]int{}
+	// Channels and the order come from every state, kept or not. tuple
+	// holds each state's channel indices (first-seen numbering, remapped to
+	// sorted order below) at tupleStart[s]:tupleStart[s+1].
+	chanIndex := map[string]int32{}
+	var channels []string
 	order := 0
-	tuples := make([][]string, all)
-	for i, name := range names[1:] {
-		t := StateChannels(name)
-		tuples[i+1] = t
-		order = max(order, len(t))
-		for _, c := range t {
-			chanIndex[c] = 0
+	tupleStart := make([]int32, all+1)
+	tuple := make([]int32, 0, all)
+	for s, name := range names {
+		if s > 0 {
+			parts := 0
+			for rest, more := name, true; more; parts++ {
+				var c string
+				c, rest, more = strings.Cut(rest, stateSep)
+				ci, ok := chanIndex[c]
+				if !ok {
+					ci = int32(len(channels))
+					chanIndex[c] = ci
+					channels = append(channels, c)
+				}
+				tuple = append(tuple, ci)
+			}
+			order = max(order, parts)
 		}
+		tupleStart[s+1] = int32(len(tuple))
 	}
-	channels := make([]string, 0, len(chanIndex))
-	for c := range chanIndex {
-		channels = append(channels, c)
+	sorted := make([]int32, len(channels))
+	for i := range sorted {
+		sorted[i] = int32(i)
+	}
+	slices.SortFunc(sorted, func(a, b int32) int { return strings.Compare(channels[a], channels[b]) })
+	rank := make([]int32, len(channels))
+	for r, i := range sorted {
+		rank[i] = int32(r)
+	}
+	for i, ci := range tuple {
+		tuple[i] = rank[ci]
 	}
 	slices.Sort(channels)
-	for i, c := range channels {
-		chanIndex[c] = i
-	}
 
 	// Row totals and adjacency over all interned states.
 	total := make([]int64, all)
@@ -443,8 +469,7 @@ func buildChain(counts []TransitionCount) (*chain, error) {
 	}
 	for id, s := range kept {
 		ch.names[id] = names[s]
-		for _, c := range tuples[s] {
-			ci := chanIndex[c]
+		for _, ci := range tuple[tupleStart[s]:tupleStart[s+1]] {
 			list := ch.statesOf[ci]
 			if len(list) > 0 && list[len(list)-1] == int32(id) {
 				continue // the channel occurs twice in this tuple

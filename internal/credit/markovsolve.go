@@ -22,10 +22,12 @@ const denseLimit = 160
 
 // Gauss–Seidel stopping rule: stop when the estimated remaining error
 // Δ·ρ/(1−ρ) (Δ the largest change of the last sweep, ρ the observed ratio of
-// successive changes) is below relTol times the conversion probability.
-// absFloor keeps the rule finite when every START probability is 0.
+// successive changes) is below relTol times the conversion probability. On
+// journey data the estimate is conservative by about two orders of
+// magnitude: measured errors of P_{−c}/P are ~1e-12. absFloor keeps the rule
+// finite when every START probability is 0.
 const (
-	relTol    = 1e-13
+	relTol    = 1e-10
 	absFloor  = 1e-30
 	maxSweeps = 200000
 )
@@ -97,16 +99,17 @@ func (s *solver) solveDense(x []float64, removed []bool) error {
 	return nil
 }
 
-// sweepColumns is the number of removal systems one Gauss–Seidel run
-// solves together: their values sit side by side per state, so each edge is
-// loaded once per run, and 8 columns of ~8000 states (0.5 MiB) stay in a
-// core's cache.
-const sweepColumns = 8
+// maxSweepColumns caps the removal systems one Gauss–Seidel run solves
+// together: their values sit side by side per state, so each edge is loaded
+// once per run for all of them, and 12 columns of ~8000 states (0.75 MiB)
+// stay in a core's cache.
+const maxSweepColumns = 12
 
 // sweepProbabilities returns P(CONVERSION | START) without removal and with
 // each removal set, by Gauss–Seidel sweeps: first the full chain alone, then
-// the removal systems in groups of sweepColumns, started from the full
-// solution (an upper bound) and spread over up to GOMAXPROCS goroutines.
+// the removal systems in even groups of at most maxSweepColumns, started from
+// the full solution (an upper bound) and spread over up to GOMAXPROCS
+// goroutines.
 func (ch *chain) sweepProbabilities(removals [][]int32) (float64, []float64, error) {
 	full := make([]float64, ch.n)
 	if err := ch.sweep(full, [][]int32{nil}, nil, 0); err != nil {
@@ -114,22 +117,25 @@ func (ch *chain) sweepProbabilities(removals [][]int32) (float64, []float64, err
 	}
 	p := full[0]
 	out := make([]float64, len(removals))
-	if !(p > 0) {
-		return 0, out, nil
+	if !(p > 0) || len(removals) == 0 {
+		return p, out, nil
 	}
-	groups := (len(removals) + sweepColumns - 1) / sweepColumns
+	workers := max(1, min(runtime.GOMAXPROCS(0), len(removals)))
+	groups := workers * ((len(removals) + workers*maxSweepColumns - 1) / (workers * maxSweepColumns))
+	size := (len(removals) + groups - 1) / groups
+	groups = (len(removals) + size - 1) / size
 	errs := make([]error, groups)
 	var next atomic.Int64
 	var wg sync.WaitGroup
-	for range min(runtime.GOMAXPROCS(0), groups) {
+	for range min(workers, groups) {
 		wg.Go(func() {
-			x := make([]float64, ch.n*sweepColumns)
+			x := make([]float64, ch.n*size)
 			for {
 				g := int(next.Add(1)) - 1
 				if g >= groups {
 					return
 				}
-				lo, hi := g*sweepColumns, min((g+1)*sweepColumns, len(removals))
+				lo, hi := g*size, min((g+1)*size, len(removals))
 				m := hi - lo
 				if errs[g] = ch.sweep(x[:ch.n*m], removals[lo:hi], full, p); errs[g] != nil {
 					return
@@ -205,7 +211,6 @@ func (ch *chain) sweep(x []float64, removals [][]int32, start []float64, ref flo
 	}
 	rowStart, col, prob := ch.rowStart, ch.col, ch.prob
 	for range maxSweeps {
-		sweepCount++
 		clear(delta)
 		for i := n - 1; i >= 0; i-- {
 			r := ch.conv[i]
@@ -241,9 +246,6 @@ func (ch *chain) sweep(x []float64, removals [][]int32, start []float64, ref flo
 		for j := range sys {
 			if start == nil {
 				sys[j].ref = max(sys[j].ref, x[j], absFloor)
-			}
-			if debugSweep {
-				fmt.Printf("sys %d delta %.3g ratio %.4f since %d steady %d\n", j, delta[j], delta[j]/sys[j].prev, sys[j].since, sys[j].steady)
 			}
 			switch sys[j].step(delta[j]) {
 			case sweepContinue:
@@ -302,13 +304,13 @@ func (p *sweepProgress) step(delta float64) sweepAction {
 	}
 	p.lastRatio, p.ratio = p.ratio, delta/p.prev
 	p.prev = delta
-	if p.lastRatio > 0 && math.Abs(p.ratio-p.lastRatio) <= ratioHoldVar*p.ratio {
+	if p.lastRatio > 0 && math.Abs(p.ratio-p.lastRatio) <= ratioHold*p.ratio {
 		p.steady++
 	} else {
 		p.steady = 0
 	}
 	rho := min(max(p.ratio, p.lastRatio), 1-1e-9)
-	if p.since >= 3 && delta*rho/(1-rho) <= relTolVar*p.ref {
+	if p.since >= 3 && delta*rho/(1-rho) <= relTol*p.ref {
 		p.converged = true
 		return sweepDone
 	}
@@ -322,8 +324,3 @@ func (p *sweepProgress) step(delta float64) sweepAction {
 func (p *sweepProgress) restart() {
 	p.prev, p.ratio, p.lastRatio, p.steady, p.since = math.Inf(1), 0, 0, 0, 0
 }
-
-var sweepCount int
-
-var debugSweep bool
-var ratioHoldVar, relTolVar = ratioHold, relTol

@@ -20,7 +20,7 @@ func ts(s string) time.Time {
 // common practice, no source; check-values.md §7).
 func TestPlanWindow(t *testing.T) {
 	res := []state.Resolution{
-		{"5m", 5 * time.Minute, 14 * 24 * time.Hour},
+		{"5m", 5 * time.Minute, 14 * 24 * time.Hour}, // a non-default finest step on purpose
 		{"hour", time.Hour, 90 * 24 * time.Hour},
 		{"day", 24 * time.Hour, 0},
 	}

@@ -37,7 +37,7 @@ func DefaultOptions(dir string) Options {
 	return Options{
 		Dir: dir,
 		Resolutions: []Resolution{
-			{"5m", 5 * time.Minute, 14 * 24 * time.Hour},
+			{"minute", time.Minute, 3 * 24 * time.Hour},
 			{"hour", time.Hour, 90 * 24 * time.Hour},
 			{"day", 24 * time.Hour, 0},
 		},
