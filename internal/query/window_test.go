@@ -20,9 +20,9 @@ func ts(s string) time.Time {
 // common practice, no source; check-values.md §7).
 func TestPlanWindow(t *testing.T) {
 	res := []state.Resolution{
-		{"5m", 5 * time.Minute, 14 * 24 * time.Hour}, // a non-default finest step on purpose
-		{"hour", time.Hour, 90 * 24 * time.Hour},
-		{"day", 24 * time.Hour, 0},
+		{Name: "5m", Step: 5 * time.Minute, Retention: 14 * 24 * time.Hour}, // a non-default finest step on purpose
+		{Name: "hour", Step: time.Hour, Retention: 90 * 24 * time.Hour},
+		{Name: "day", Step: 24 * time.Hour},
 	}
 	wm := ts("2026-10-28T12:34:56Z")
 	cases := []struct {
