@@ -41,19 +41,19 @@ func creditJSON(t *testing.T, dir string) string {
 		t.Fatal(err)
 	}
 	defer st.Close()
-	q, err := query.NewQuerier(st)
+	q, err := query.NewQuerier(st, pipeline.QueryParams(config.Default()))
 	if err != nil {
 		t.Fatal(err)
 	}
 	defer q.Close()
 	var all []any
 	for _, m := range credit.RuleModels {
-		a, err := q.Credit(m.String(), query.ByCampaign, query.Span{Last: 365 * 24 * time.Hour})
+		a, err := q.Credit(m.String(), query.ByCampaign, 0, query.Span{Last: 365 * 24 * time.Hour})
 		if err != nil {
 			t.Fatal(err)
 		}
 		all = append(all, a)
-		s, err := q.Shift(m.String(), 10)
+		s, err := q.Shift(m.String(), 0, 10)
 		if err != nil {
 			t.Fatal(err)
 		}

@@ -1,8 +1,12 @@
 // Command query answers questions from a touchledger data directory.
 //
-//	query credit --data DIR --model NAME [--from T --to T | --last 7d] [--by channel|campaign] [--format table|json|csv]
-//	query shift  --data DIR --model NAME [--days 14]
-//	query status --data DIR
+//	query credit      --data DIR --model NAME [--order K] [window] [--by channel|campaign] [--format table|json|csv]
+//	query shift       --data DIR --model NAME [--days 14]
+//	query transitions --data DIR --level channel|action [--order K]
+//	query paths       --data DIR --level action|channel [--top N]
+//	query funnel      --data DIR
+//	query alerts      --data DIR [--points]
+//	query status      --data DIR
 //
 // See `query --help`.
 package main
@@ -27,9 +31,22 @@ import (
 const usage = `query: read channel credit and path statistics from a touchledger data directory.
 
 Usage:
-  query credit --data DIR --model NAME [window] [--by channel|campaign] [--format F] [--chart]
-  query shift  --data DIR --model NAME [--days N] [--format F] [--chart]
-  query status --data DIR [window] [--format F]
+  query credit      --data DIR --model NAME [--order K] [window] [--by channel|campaign] [--format F] [--chart]
+  query shift       --data DIR --model NAME [--days N] [--format F] [--chart]
+  query transitions --data DIR --level channel|action [--order K] [window] [--format F]
+  query paths       --data DIR --level action|channel [--top N] [window] [--format F]
+  query funnel      --data DIR [window] [--format F]
+  query alerts      --data DIR [window] [--points] [--format F]
+  query status      --data DIR [window] [--format F]
+
+credit       conversions and value credited to each channel by a model
+shift        each channel's credit per day and the change from the day before
+transitions  how journeys move between channels (as the Markov model sees
+             them), or how sessions move between actions, with row probabilities
+paths        the most frequent whole session or journey paths, with conversion rates
+funnel       sessions reaching each funnel step in order, and where they drop out
+alerts       cart-abandonment spikes found by an EWMA control chart
+status       what the data directory holds
 
 Window (over conversion time, [from, to)):
   --last 7d          the 7 days up to the latest event seen (default 30d)
@@ -51,6 +68,7 @@ func modelNames() string {
 	for _, m := range credit.RuleModels {
 		names = append(names, m.String())
 	}
+	names = append(names, query.ModelMarkov, query.ModelShapley)
 	return strings.Join(names, ", ")
 }
 
@@ -76,11 +94,15 @@ func run(args []string, stdout, stderr io.Writer) int {
 		last       = fs.String("last", "", "window `length` ending at the latest event, e.g. 7d, 12h")
 		days       = fs.Int("days", 14, "shift: number of `days` to show")
 		chart      = fs.Bool("chart", false, "table format: add a text bar chart")
+		order      = fs.Int("order", 1, "markov model and channel transitions: Markov `order` (1 up to markov_max_order)")
+		level      = fs.String("level", "", "transitions and paths: `channel` (journeys) or action (sessions)")
+		top        = fs.Int("top", 10, "paths: how many paths to show")
+		points     = fs.Bool("points", false, "alerts: also show every interval of the chart")
 	)
 	switch cmd {
-	case "credit", "shift", "status":
+	case "credit", "shift", "status", "transitions", "paths", "funnel", "alerts":
 	default:
-		fmt.Fprintf(stderr, "query: unknown command %q (credit, shift, status; see --help)\n", cmd)
+		fmt.Fprintf(stderr, "query: unknown command %q (see --help)\n", cmd)
 		return 2
 	}
 	if err := fs.Parse(args); err != nil {
@@ -129,14 +151,17 @@ func run(args []string, stdout, stderr io.Writer) int {
 		return fail(1, err)
 	}
 	defer st.Close()
-	q, err := query.NewQuerier(st)
+	if (cmd == "transitions" || cmd == "paths") && *level == "" {
+		return fail(2, errors.New("--level is required: channel or action"))
+	}
+	q, err := query.NewQuerier(st, pipeline.QueryParams(cfg))
 	if err != nil {
 		return fail(1, err)
 	}
 	defer q.Close()
 	switch cmd {
 	case "credit":
-		a, err := q.Credit(*model, grp, span)
+		a, err := q.Credit(*model, grp, *order, span)
 		if err != nil {
 			return fail(1, err)
 		}
@@ -145,11 +170,43 @@ func run(args []string, stdout, stderr io.Writer) int {
 			return fail(1, err)
 		}
 	case "shift":
-		a, err := q.Shift(*model, *days)
+		a, err := q.Shift(*model, *order, *days)
 		if err != nil {
 			return fail(1, err)
 		}
 		if err := query.WriteShift(stdout, a, f, *chart); err != nil {
+			return fail(1, err)
+		}
+	case "transitions":
+		a, err := q.Transitions(*level, *order, span)
+		if err != nil {
+			return fail(1, err)
+		}
+		if err := query.WriteTransitions(stdout, a, f); err != nil {
+			return fail(1, err)
+		}
+	case "paths":
+		a, err := q.Paths(*level, *top, span)
+		if err != nil {
+			return fail(1, err)
+		}
+		if err := query.WritePaths(stdout, a, f); err != nil {
+			return fail(1, err)
+		}
+	case "funnel":
+		a, err := q.Funnel(span)
+		if err != nil {
+			return fail(1, err)
+		}
+		if err := query.WriteFunnel(stdout, a, f); err != nil {
+			return fail(1, err)
+		}
+	case "alerts":
+		a, err := q.Alerts(span, *points)
+		if err != nil {
+			return fail(1, err)
+		}
+		if err := query.WriteAlerts(stdout, a, f); err != nil {
 			return fail(1, err)
 		}
 	case "status":

@@ -106,17 +106,101 @@ func BenchmarkMarkov(b *testing.B) {
 				b.Fatal(err)
 			}
 			b.ReportAllocs()
-			start := time.Now()
 			for b.Loop() {
 				if _, err := Markov(counts); err != nil {
 					b.Fatal(err)
 				}
 			}
-			elapsed := time.Since(start).Seconds()
+			elapsed := b.Elapsed().Seconds()
 			b.ReportMetric(float64(events)*float64(b.N)/elapsed, "events/s")
 			b.ReportMetric(elapsed*1e3/float64(b.N), "ms/answer")
 			b.ReportMetric(float64(ch.n), "states")
 			b.ReportMetric(float64(len(counts)), "transitions")
+		})
+	}
+}
+
+// BenchmarkWeights runs the hot path of rule-based credit: Weights and
+// Apportion for all six models per conversion, over fixed-seed conversions
+// with 1..10 touches. events/s counts touches and conversions.
+func BenchmarkWeights(b *testing.B) {
+	r := rand.New(rand.NewPCG(9, 9))
+	channels := []string{"direct", "email", "social", "display", "paid_search", "affiliate"}
+	type conversion struct {
+		touches []Touch
+		at      time.Time
+		value   int64
+	}
+	convs := make([]conversion, 10_000)
+	var events int64
+	for i := range convs {
+		n := 1 + i%10
+		at := time.Date(2026, 3, 1, 0, 0, 0, 0, time.UTC).Add(time.Duration(r.Int64N(int64(30 * 24 * time.Hour))))
+		ts := make([]Touch, n)
+		t := at.Add(-time.Duration(r.Int64N(int64(30 * 24 * time.Hour))))
+		for j := range ts {
+			ts[j] = Touch{Channel: channels[r.IntN(len(channels))], Time: t}
+			t = t.Add(time.Duration(r.Int64N(int64(at.Sub(t)) + 1)))
+		}
+		convs[i] = conversion{ts, at, r.Int64N(50_000_000)}
+		events += int64(n) + 1
+	}
+	p := DefaultParams()
+	w := make([]float64, 0, 16)
+	units := make([]int64, 0, 16)
+	b.ReportAllocs()
+	for b.Loop() {
+		for _, c := range convs {
+			for _, m := range RuleModels {
+				w = Weights(m, p, c.touches, c.at, w)
+				units = Apportion(c.value, w, units)
+			}
+		}
+	}
+	b.ReportMetric(float64(events)*float64(b.N)/b.Elapsed().Seconds(), "events/s")
+	b.ReportMetric(float64(len(convs))*float64(b.N)/b.Elapsed().Seconds(), "conversions/s")
+}
+
+// BenchmarkShapley answers Shapley credit over the coalitions of 200k
+// journeys on 15 channels (and 20, the hard limit). Target (issue 3):
+// <= 50 ms per answer with 15 channels.
+func BenchmarkShapley(b *testing.B) {
+	for _, channels := range []int{15, 20} {
+		js := benchJourneys(2, 200_000, channels)
+		type key = string
+		agg := map[key]*Coalition{}
+		var events int64
+		for _, j := range js {
+			set := slices.Clone(j.path)
+			slices.Sort(set)
+			set = slices.Compact(set)
+			k := strings.Join(set, stateSep)
+			c := agg[k]
+			if c == nil {
+				c = &Coalition{Channels: set}
+				agg[k] = c
+			}
+			c.Journeys++
+			events += int64(len(j.path))
+			if j.converted {
+				c.Conversions++
+				events++
+			}
+		}
+		coalitions := make([]Coalition, 0, len(agg))
+		for _, c := range agg {
+			coalitions = append(coalitions, *c)
+		}
+		b.Run(fmt.Sprintf("channels=%d/journeys=200k", channels), func(b *testing.B) {
+			b.ReportAllocs()
+			for b.Loop() {
+				if _, err := Shapley(coalitions, channels, "other"); err != nil {
+					b.Fatal(err)
+				}
+			}
+			b.ReportMetric(float64(events)*float64(b.N)/b.Elapsed().Seconds(), "events/s")
+			b.ReportMetric(b.Elapsed().Seconds()*1e3/float64(b.N), "ms/answer")
+			b.ReportMetric(float64(len(coalitions)), "coalitions")
 		})
 	}
 }

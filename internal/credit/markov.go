@@ -242,6 +242,7 @@ type chain struct {
 	prob     []float64 // edge probability
 	conv     []float64 // p(s → CONVERSION)
 	stay     []float64 // p(s → s), the self-loop
+	invStay  []float64 // 1 / (1 − p(s → s))
 	names    []string  // state names, for error messages and tests
 	channels []string  // sorted channel names
 	statesOf [][]int32 // per channel, the kept states whose tuple contains it
@@ -467,7 +468,9 @@ func buildChain(counts []TransitionCount) (*chain, error) {
 			next[id]++
 		}
 	}
+	ch.invStay = make([]float64, n)
 	for id, s := range kept {
+		ch.invStay[id] = 1 / (1 - ch.stay[id])
 		ch.names[id] = names[s]
 		for _, ci := range tuple[tupleStart[s]:tupleStart[s+1]] {
 			list := ch.statesOf[ci]

@@ -544,10 +544,14 @@ func TestMarkovSolversAgree(t *testing.T) {
 	}
 	for trial := range trials {
 		var counts []TransitionCount
-		if trial%2 == 0 {
+		switch trial % 3 {
+		case 0:
 			counts = randomCounts(r, 2+r.IntN(4), 1+r.IntN(3), 3+r.IntN(25))
-		} else {
+		case 1:
 			counts = countsOf(randomJourneys(r, 5+r.IntN(30), 2+r.IntN(4), 7), 1+r.IntN(3), r.IntN(2) == 0)
+		case 2:
+			// Enough channels for the four-systems-at-a-time sweep kernel.
+			counts = countsOf(randomJourneys(r, 40+r.IntN(40), 9+r.IntN(4), 5), 1+r.IntN(2), true)
 		}
 		dense, errD := markovWith(t, counts, denseLimit)
 		sweeps, errS := markovWith(t, counts, 0)
@@ -570,6 +574,38 @@ func TestMarkovSolversAgree(t *testing.T) {
 			if !near(dense.RemovalEffect[c], want, 1e-9) || !near(sweeps.RemovalEffect[c], want, 1e-9) {
 				t.Errorf("trial %d: RE(%s) dense %v, sweeps %v, power %v", trial, name,
 					dense.RemovalEffect[c], sweeps.RemovalEffect[c], want)
+			}
+		}
+	}
+}
+
+// For counts from complete journeys the observed visit counts solve the
+// chain's forward equations (every visit to a state is entered once and left
+// once), so P(conv) equals the observed conversion rate at any order, with or
+// without collapsing [derived; consistent with every P of check-values.md §3:
+// EX1 1/3, EX2b 1/2, EX5 2/3, EX6 4/5].
+func TestMarkovConversionRateIdentity(t *testing.T) {
+	r := rand.New(rand.NewPCG(5, 8))
+	for trial := range 30 {
+		js := randomJourneys(r, 10+r.IntN(60), 3+r.IntN(8), 8)
+		var journeys, conversions int64
+		for _, j := range js {
+			journeys += j.times
+			if j.converted {
+				conversions += j.times
+			}
+		}
+		k, collapse := 1+r.IntN(4), r.IntN(2) == 0
+		for _, mode := range solverModes {
+			got, err := markovWith(t, countsOf(js, k, collapse), mode.dense)
+			if conversions == 0 {
+				if !errors.Is(err, ErrNoConversionPath) {
+					t.Errorf("trial %d: no conversions, error %v", trial, err)
+				}
+				continue
+			}
+			if want := float64(conversions) / float64(journeys); !near(got.PConversion, want, 1e-10) {
+				t.Errorf("trial %d %s order %d: P = %.15g, want %d/%d", trial, mode.name, k, got.PConversion, conversions, journeys)
 			}
 		}
 	}

@@ -209,38 +209,18 @@ func (ch *chain) sweep(x []float64, removals [][]int32, start []float64, ref flo
 	for j := range sys {
 		sys[j] = sweepProgress{prev: math.Inf(1), ref: ref}
 	}
-	rowStart, col, prob := ch.rowStart, ch.col, ch.prob
+	var skip []bool // m == 1: the removed states
+	if m == 1 && len(removals[0]) > 0 {
+		skip = make([]bool, n)
+		for _, s := range removals[0] {
+			skip[s] = true
+		}
+	}
 	for range maxSweeps {
-		clear(delta)
-		for i := n - 1; i >= 0; i-- {
-			r := ch.conv[i]
-			for j := range acc {
-				acc[j] = r
-			}
-			for e := rowStart[i]; e < rowStart[i+1]; e++ {
-				p := prob[e]
-				t := int(col[e]) * m
-				xt := x[t : t+m]
-				acc := acc[:len(xt)]
-				for j, v := range xt {
-					acc[j] += p * v
-				}
-			}
-			for _, j := range remSys[remStart[i]:remStart[i+1]] {
-				acc[j] = 0
-			}
-			inv := 1 / (1 - ch.stay[i])
-			xi := x[i*m : i*m+m]
-			di := diff[i*m : i*m+m]
-			acc := acc[:len(xi)]
-			delta := delta[:len(xi)]
-			for j, v := range xi {
-				nv := acc[j] * inv
-				d := nv - v
-				di[j] = d
-				delta[j] = max(delta[j], math.Abs(d))
-				xi[j] = nv
-			}
+		if m == 1 {
+			delta[0] = ch.relaxOne(x, diff, skip)
+		} else {
+			ch.relaxMany(x, diff, delta, acc, remStart, remSys)
 		}
 		done := true
 		for j := range sys {
@@ -323,4 +303,92 @@ func (p *sweepProgress) step(delta float64) sweepAction {
 // restart forgets the ratio history after an extrapolation.
 func (p *sweepProgress) restart() {
 	p.prev, p.ratio, p.lastRatio, p.steady, p.since = math.Inf(1), 0, 0, 0, 0
+}
+
+// relaxOne is one Gauss–Seidel sweep of a single system (the states marked
+// in skip stay 0); it returns the largest change.
+func (ch *chain) relaxOne(x, diff []float64, skip []bool) float64 {
+	rowStart, col, prob, conv, inv := ch.rowStart, ch.col, ch.prob, ch.conv, ch.invStay
+	x = x[:len(conv)]
+	diff = diff[:len(conv)]
+	inv = inv[:len(conv)]
+	var delta float64
+	for i := len(conv) - 1; i >= 0; i-- {
+		if skip != nil && skip[i] {
+			continue
+		}
+		cols := col[rowStart[i]:rowStart[i+1]]
+		ps := prob[rowStart[i]:rowStart[i+1]]
+		ps = ps[:len(cols)]
+		// Two partial sums halve the chain of dependent additions.
+		a, b := conv[i], 0.0
+		e := 0
+		for ; e+2 <= len(cols); e += 2 {
+			a += ps[e] * x[cols[e]]
+			b += ps[e+1] * x[cols[e+1]]
+		}
+		if e < len(cols) {
+			a += ps[e] * x[cols[e]]
+		}
+		nv := (a + b) * inv[i]
+		d := nv - x[i]
+		diff[i] = d
+		delta = max(delta, math.Abs(d))
+		x[i] = nv
+	}
+	return delta
+}
+
+// relaxMany is one Gauss–Seidel sweep of m = len(acc) systems stored side
+// by side (x[s·m + j]); remSys[remStart[s]:remStart[s+1]] lists the systems
+// in which state s is removed. Four systems at a time keep their sums in
+// registers while the row's edges are read. delta receives each system's
+// largest change.
+func (ch *chain) relaxMany(x, diff, delta, acc []float64, remStart, remSys []int32) {
+	rowStart, col, prob, conv, inv := ch.rowStart, ch.col, ch.prob, ch.conv, ch.invStay
+	m := len(acc)
+	clear(delta)
+	for i := len(conv) - 1; i >= 0; i-- {
+		cols := col[rowStart[i]:rowStart[i+1]]
+		ps := prob[rowStart[i]:rowStart[i+1]]
+		ps = ps[:len(cols)]
+		r := conv[i]
+		j := 0
+		for ; j+4 <= m; j += 4 {
+			a0, a1, a2, a3 := r, r, r, r
+			for e, c := range cols {
+				p := ps[e]
+				t := int(c)*m + j
+				xt := x[t : t+4 : t+4]
+				a0 += p * xt[0]
+				a1 += p * xt[1]
+				a2 += p * xt[2]
+				a3 += p * xt[3]
+			}
+			acc[j], acc[j+1], acc[j+2], acc[j+3] = a0, a1, a2, a3
+		}
+		for ; j < m; j++ {
+			a := r
+			for e, c := range cols {
+				a += ps[e] * x[int(c)*m+j]
+			}
+			acc[j] = a
+		}
+		for _, j := range remSys[remStart[i]:remStart[i+1]] {
+			acc[j] = 0
+		}
+		f := inv[i]
+		xi := x[i*m : i*m+m]
+		di := diff[i*m : i*m+m]
+		di = di[:len(xi)]
+		acc := acc[:len(xi)]
+		delta := delta[:len(xi)]
+		for j, v := range xi {
+			nv := acc[j] * f
+			d := nv - v
+			di[j] = d
+			delta[j] = max(delta[j], math.Abs(d))
+			xi[j] = nv
+		}
+	}
 }

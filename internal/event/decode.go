@@ -3,8 +3,8 @@ package event
 import (
 	"bytes"
 	"fmt"
-	"strings"
 	"time"
+	"unsafe"
 )
 
 // Limits bounds the size of an input event. All sizes are in bytes.
@@ -92,11 +92,7 @@ func (d *Decoder) Decode(b []byte) (Event, error) {
 	if d.duplicate != noField {
 		return Event{}, rejectField(ReasonBadField, d.duplicate, "appears more than once")
 	}
-	ev, rej := d.event(b)
-	if rej != nil {
-		return Event{}, rej
-	}
-	return ev, nil
+	return d.event(b)
 }
 
 // scanEvent checks that b is one JSON object and records where its known
@@ -203,8 +199,9 @@ func fieldOf(key []byte) field {
 	return noField
 }
 
-// event validates the recorded fields of b and builds the Event.
-func (d *Decoder) event(b []byte) (Event, *RejectError) {
+// event validates the recorded fields of b and builds the Event. Every
+// error it returns is a non-nil *RejectError.
+func (d *Decoder) event(b []byte) (Event, error) {
 	var (
 		raw [numFields][]byte // validated string fields
 		rej *RejectError
@@ -285,17 +282,18 @@ func (d *Decoder) event(b []byte) (Event, *RejectError) {
 	if !sameCurrency {
 		n += len(raw[fieldCurrency])
 	}
-	var all strings.Builder
-	all.Grow(n)
-	all.Write(raw[fieldID])
-	all.Write(raw[fieldUser])
-	all.Write(raw[fieldChannel])
-	all.Write(raw[fieldCampaign])
-	all.Write(raw[fieldAction])
+	buf := make([]byte, 0, n)
+	buf = append(buf, raw[fieldID]...)
+	buf = append(buf, raw[fieldUser]...)
+	buf = append(buf, raw[fieldChannel]...)
+	buf = append(buf, raw[fieldCampaign]...)
+	buf = append(buf, raw[fieldAction]...)
 	if !sameCurrency {
-		all.Write(raw[fieldCurrency])
+		buf = append(buf, raw[fieldCurrency]...)
 	}
-	rest := all.String()
+	// buf is never written again, so the string may share its memory (the
+	// same step strings.Builder.String takes).
+	rest := unsafe.String(unsafe.SliceData(buf), len(buf))
 	next := func(f field) string {
 		s := rest[:len(raw[f])]
 		rest = rest[len(raw[f]):]

@@ -74,12 +74,10 @@ const (
 func specialBytes(x uint64) uint64 {
 	quote := x ^ (ones * '"')
 	backslash := x ^ (ones * '\\')
-	del := x ^ (ones * 0x7f)
 	return (x-ones*0x20)&^x | // below 0x20
 		(quote-ones)&^quote | // '"'
 		(backslash-ones)&^backslash | // '\\'
-		(del-ones)&^del | // DEL
-		x&highs // 0x80 and above
+		(x | (x + ones)) // DEL (0x7f+1 sets bit 7) and 0x80 and above
 }
 
 // String flags returned by scanString.

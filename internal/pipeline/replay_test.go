@@ -15,6 +15,7 @@ import (
 	"time"
 
 	"github.com/touchledger/touchledger/demo/shop"
+	"github.com/touchledger/touchledger/internal/config"
 	"github.com/touchledger/touchledger/internal/credit"
 	"github.com/touchledger/touchledger/internal/event"
 	"github.com/touchledger/touchledger/internal/query"
@@ -82,7 +83,7 @@ func answers(t testing.TB, dir string) map[string]query.CreditAnswer {
 		t.Fatal(err)
 	}
 	defer st.Close()
-	q, err := query.NewQuerier(st)
+	q, err := query.NewQuerier(st, QueryParams(config.Default()))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -90,7 +91,7 @@ func answers(t testing.TB, dir string) map[string]query.CreditAnswer {
 	out := map[string]query.CreditAnswer{}
 	for _, m := range credit.RuleModels {
 		for _, by := range []string{query.ByChannel, query.ByCampaign} {
-			a, err := q.Credit(m.String(), by, query.Span{Last: 400 * day})
+			a, err := q.Credit(m.String(), by, 0, query.Span{Last: 400 * day})
 			if err != nil {
 				t.Fatal(err)
 			}

@@ -1,9 +1,11 @@
 package pipeline
 
 import (
+	"github.com/touchledger/touchledger/internal/alert"
 	"github.com/touchledger/touchledger/internal/config"
 	"github.com/touchledger/touchledger/internal/credit"
 	"github.com/touchledger/touchledger/internal/event"
+	"github.com/touchledger/touchledger/internal/query"
 	"github.com/touchledger/touchledger/internal/sessionize"
 	"github.com/touchledger/touchledger/internal/state"
 )
@@ -25,8 +27,14 @@ func FromConfig(c config.Config) Config {
 				Last:     c.PositionWeights.Last,
 				Direct:   c.DirectChannel,
 			},
-			MaxPath:    64,
-			MaxTouches: 100,
+			MaxPath:         64,
+			MaxTouches:      100,
+			PathStats:       true,
+			FunnelSteps:     c.FunnelSteps,
+			CartStep:        c.CartStep,
+			MarkovMaxOrder:  c.MarkovMaxOrder,
+			CollapseRepeats: c.CollapseRepeats,
+			PathMaxLen:      c.PathMaxLen,
 		},
 		Lateness:       c.Lateness.D(),
 		Currency:       c.Currency,
@@ -48,4 +56,24 @@ func StoreOptions(dir string, c config.Config) state.Options {
 	o.BlockCacheMiB = c.Store.BlockCacheMiB
 	o.IndexCacheMiB = c.Store.IndexCacheMiB
 	return o
+}
+
+// QueryParams builds the query-time settings from the file configuration.
+func QueryParams(c config.Config) query.Params {
+	step := c.Alert.Interval.D()
+	return query.Params{
+		Direct:         c.DirectChannel,
+		MarkovMaxOrder: c.MarkovMaxOrder,
+		ShapleyCap:     c.ShapleyCap,
+		FunnelSteps:    c.FunnelSteps,
+		CartStep:       c.CartStep,
+		AlertInterval:  step,
+		Alert: alert.Params{
+			Lambda:      c.Alert.Lambda,
+			L:           c.Alert.Limit,
+			MinSessions: int64(c.Alert.MinSessions),
+			Baseline:    max(1, int(c.Alert.Baseline.D()/step)),
+			CloseAfter:  c.Alert.CloseAfter,
+		},
+	}
 }

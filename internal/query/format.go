@@ -244,3 +244,148 @@ func WriteStatus(w io.Writer, s Summary, p Plan, f Format) error {
 		o.From, o.To, s.Latest, s.Conversions, f2(s.Value), s.Sessions, s.Actions, s.Touches)
 	return err
 }
+
+func csvOut(w io.Writer, rows [][]string) error {
+	cw := csv.NewWriter(w)
+	if err := cw.WriteAll(rows); err != nil {
+		return err
+	}
+	return cw.Error()
+}
+
+func ff(x float64) string { return strconv.FormatFloat(x, 'f', -1, 64) }
+func fi(x int64) string   { return strconv.FormatInt(x, 10) }
+
+// WriteTransitions writes a transitions answer.
+func WriteTransitions(w io.Writer, a TransitionsAnswer, f Format) error {
+	switch f {
+	case JSON:
+		return WriteJSON(w, a)
+	case CSV:
+		rows := [][]string{{"level", "order", "from_time", "to_time", "from", "to", "count", "probability"}}
+		for _, t := range a.Transitions {
+			rows = append(rows, []string{a.Level, strconv.Itoa(a.Order), a.From, a.To, t.From, t.To, fi(t.Count), ff(t.Probability)})
+		}
+		return csvOut(w, rows)
+	}
+	title := "action transitions within sessions"
+	if a.Level == "channel" {
+		title = fmt.Sprintf("channel transitions of journeys (order %d)", a.Order)
+	}
+	fmt.Fprintf(w, "%s · %s to %s\n\n", title, a.From, a.To)
+	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
+	fmt.Fprintln(tw, "FROM\tTO\tCOUNT\tPROBABILITY\t")
+	for _, t := range a.Transitions {
+		fmt.Fprintf(tw, "%s\t%s\t%d\t%s\t\n", t.From, t.To, t.Count, f4(t.Probability))
+	}
+	if len(a.Transitions) == 0 {
+		fmt.Fprintln(tw, "(nothing in this window)\t")
+	}
+	return tw.Flush()
+}
+
+func f4(x float64) string { return strconv.FormatFloat(x, 'f', 4, 64) }
+
+// WritePaths writes a paths answer.
+func WritePaths(w io.Writer, a PathsAnswer, f Format) error {
+	switch f {
+	case JSON:
+		return WriteJSON(w, a)
+	case CSV:
+		rows := [][]string{{"level", "from", "to", "path", "count", "share", "conversions", "conversion_rate"}}
+		for _, p := range a.Paths {
+			rows = append(rows, []string{a.Level, a.From, a.To, p.Path, fi(p.Count), ff(p.Share), fi(p.Conversions), ff(p.ConversionRate)})
+		}
+		return csvOut(w, rows)
+	}
+	what := "sessions (actions, repeats collapsed)"
+	if a.Level == "channel" {
+		what = "journeys (channels, ending in conversion or null)"
+	}
+	fmt.Fprintf(w, "most frequent paths of %s · %s to %s · %d in all\n\n", what, a.From, a.To, a.Total)
+	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
+	fmt.Fprintln(tw, "COUNT\tSHARE\tCONVERSION RATE\tPATH\t")
+	for _, p := range a.Paths {
+		fmt.Fprintf(tw, "%d\t%s\t%s\t%s\t\n", p.Count, pct(p.Share), pct(p.ConversionRate), p.Path)
+	}
+	return tw.Flush()
+}
+
+// WriteFunnel writes a funnel answer.
+func WriteFunnel(w io.Writer, a FunnelAnswer, f Format) error {
+	switch f {
+	case JSON:
+		return WriteJSON(w, a)
+	case CSV:
+		rows := [][]string{{"from", "to", "step", "sessions", "abandonment"}}
+		for _, s := range a.Steps {
+			rows = append(rows, []string{a.From, a.To, s.Step, fi(s.Sessions), ff(s.Abandonment)})
+		}
+		return csvOut(w, rows)
+	}
+	fmt.Fprintf(w, "closed funnel of %d sessions ending %s to %s\n\n", a.Sessions, a.From, a.To)
+	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
+	fmt.Fprintln(tw, "STEP\tSESSIONS\tDROP TO NEXT\t\t")
+	var first int64
+	if len(a.Steps) > 0 {
+		first = a.Steps[0].Sessions
+	}
+	for i, s := range a.Steps {
+		drop := pct(s.Abandonment)
+		if i == len(a.Steps)-1 {
+			drop = "-"
+		}
+		frac := 0.0
+		if first > 0 {
+			frac = float64(s.Sessions) / float64(first)
+		}
+		fmt.Fprintf(tw, "%s\t%d\t%s\t%s\t\n", s.Step, s.Sessions, drop, Bar(frac, 30))
+	}
+	tw.Flush()
+	_, err := fmt.Fprintf(w, "\ncart abandonment %s of %d cart sessions · first to last step %s\n",
+		pct(a.CartAbandonment), a.CartSessions, pct(a.OverallConversion))
+	return err
+}
+
+// WriteAlerts writes an alerts answer.
+func WriteAlerts(w io.Writer, a AlertsAnswer, f Format) error {
+	switch f {
+	case JSON:
+		return WriteJSON(w, a)
+	case CSV:
+		rows := [][]string{{"name", "opened", "closed", "open", "rate", "baseline", "limit", "peak"}}
+		for _, x := range a.Alerts {
+			rows = append(rows, []string{x.Name, x.Opened, x.Closed, strconv.FormatBool(x.Open), ff(x.Rate), ff(x.Baseline), ff(x.Limit), ff(x.Peak)})
+		}
+		return csvOut(w, rows)
+	}
+	fmt.Fprintf(w, "cart-abandonment alerts · %s intervals · %s to %s\n\n", a.Interval, a.From, a.To)
+	if len(a.Alerts) == 0 {
+		fmt.Fprintln(w, "no alerts in this window")
+	} else {
+		tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
+		fmt.Fprintln(tw, "OPENED\tCLOSED\tRATE\tBASELINE\tLIMIT\tPEAK\t")
+		for _, x := range a.Alerts {
+			closed := x.Closed
+			if x.Open {
+				closed = "(open)"
+			}
+			fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\t\n", x.Opened, closed, pct(x.Rate), pct(x.Baseline), pct(x.Limit), pct(x.Peak))
+		}
+		tw.Flush()
+	}
+	if len(a.Points) > 0 {
+		fmt.Fprintln(w)
+		tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
+		fmt.Fprintln(tw, "INTERVAL\tCART SESSIONS\tABANDONED\tRATE\tEWMA\tLIMIT\t\t")
+		for _, p := range a.Points {
+			mark := ""
+			if p.Alerting {
+				mark = "ALERT"
+			}
+			fmt.Fprintf(tw, "%s\t%d\t%d\t%s\t%s\t%s\t%s\t\n", p.Start, p.Sessions, p.Abandons, pct(p.Rate), pct(p.Statistic), pct(p.Limit), mark)
+		}
+		tw.Flush()
+	}
+	return nil
+}

@@ -20,10 +20,11 @@ type Querier struct {
 	r       *state.Reader
 	res     []state.Resolution
 	maxSeen time.Time
+	p       Params
 }
 
 // NewQuerier opens a snapshot of s. Close it when done.
-func NewQuerier(s *state.Store) (*Querier, error) {
+func NewQuerier(s *state.Store, p Params) (*Querier, error) {
 	r := s.NewReader()
 	maxSeen, _, ok, err := r.Watermark()
 	if err != nil {
@@ -34,7 +35,7 @@ func NewQuerier(s *state.Store) (*Querier, error) {
 		r.Discard()
 		return nil, ErrNoData
 	}
-	return &Querier{r: r, res: s.Resolutions(), maxSeen: time.Unix(0, maxSeen).UTC()}, nil
+	return &Querier{r: r, res: s.Resolutions(), maxSeen: time.Unix(0, maxSeen).UTC(), p: p}, nil
 }
 
 // Close releases the snapshot.
@@ -79,8 +80,11 @@ func (q *Querier) Plan(s Span) (Plan, error) {
 // Table sums family f over the plan.
 func (q *Querier) Table(p Plan, f tally.Family) (tally.Table, error) { return Sum(q.r, p, f) }
 
-// Credit answers `query credit` for a rule-based model.
-func (q *Querier) Credit(model string, by string, s Span) (CreditAnswer, error) {
+// Credit answers `query credit`. order applies to the Markov model (0 = 1).
+func (q *Querier) Credit(model string, by string, order int, s Span) (CreditAnswer, error) {
+	if IsDataDriven(model) {
+		return q.dataCredit(model, by, order, s)
+	}
 	m, err := credit.ParseModel(model)
 	if err != nil {
 		return CreditAnswer{}, err
@@ -98,6 +102,164 @@ func (q *Querier) Credit(model string, by string, s Span) (CreditAnswer, error) 
 		return CreditAnswer{}, err
 	}
 	return RuleCredit(m.String(), by, p, totals, ct), nil
+}
+
+func (q *Querier) dataCredit(model, by string, order int, s Span) (CreditAnswer, error) {
+	if by != ByChannel {
+		return CreditAnswer{}, fmt.Errorf("the %s model credits channels only (no --by campaign)", model)
+	}
+	if order == 0 {
+		order = 1
+	}
+	if order < 1 || order > q.p.MarkovMaxOrder {
+		return CreditAnswer{}, fmt.Errorf("--order must be 1 to %d (markov_max_order), got %d", q.p.MarkovMaxOrder, order)
+	}
+	p, err := q.Plan(s)
+	if err != nil {
+		return CreditAnswer{}, err
+	}
+	var tabs [3]tally.Table
+	for i, f := range []tally.Family{tally.Totals, tally.ChannelTransitions, tally.Coalitions} {
+		if model == ModelShapley && f == tally.ChannelTransitions {
+			tabs[i] = tally.Table{}
+			continue
+		}
+		if tabs[i], err = q.Table(p, f); err != nil {
+			return CreditAnswer{}, err
+		}
+	}
+	return DataDrivenCredit(model, order, p, q.p, tabs[0], tabs[1], tabs[2])
+}
+
+// Transitions answers `query transitions`; level is "channel" or "action".
+func (q *Querier) Transitions(level string, order int, s Span) (TransitionsAnswer, error) {
+	f := tally.ActionTransitions
+	switch level {
+	case "action":
+	case "channel":
+		f = tally.ChannelTransitions
+		if order == 0 {
+			order = 1
+		}
+		if order < 1 || order > q.p.MarkovMaxOrder {
+			return TransitionsAnswer{}, fmt.Errorf("--order must be 1 to %d, got %d", q.p.MarkovMaxOrder, order)
+		}
+	default:
+		return TransitionsAnswer{}, fmt.Errorf("unknown level %q: use channel or action", level)
+	}
+	p, err := q.Plan(s)
+	if err != nil {
+		return TransitionsAnswer{}, err
+	}
+	t, err := q.Table(p, f)
+	if err != nil {
+		return TransitionsAnswer{}, err
+	}
+	return Transitions(level, order, p, t), nil
+}
+
+// Paths answers `query paths`.
+func (q *Querier) Paths(level string, top int, s Span) (PathsAnswer, error) {
+	f := tally.SessionPaths
+	switch level {
+	case "action":
+	case "channel":
+		f = tally.JourneyPaths
+	default:
+		return PathsAnswer{}, fmt.Errorf("unknown level %q: use channel or action", level)
+	}
+	if top < 1 {
+		return PathsAnswer{}, fmt.Errorf("--top must be at least 1")
+	}
+	p, err := q.Plan(s)
+	if err != nil {
+		return PathsAnswer{}, err
+	}
+	t, err := q.Table(p, f)
+	if err != nil {
+		return PathsAnswer{}, err
+	}
+	return Paths(level, top, p, t), nil
+}
+
+// Funnel answers `query funnel`.
+func (q *Querier) Funnel(s Span) (FunnelAnswer, error) {
+	p, err := q.Plan(s)
+	if err != nil {
+		return FunnelAnswer{}, err
+	}
+	t, err := q.Table(p, tally.Funnel)
+	if err != nil {
+		return FunnelAnswer{}, err
+	}
+	return Funnel(q.p.FunnelSteps, p, t), nil
+}
+
+// Alerts answers `query alerts`: the cart-abandonment chart is run from the
+// baseline's length before the window (so the baseline is warm) and the
+// alerts that were open at any time in the window are listed. The series
+// comes from the finest resolution whose step divides the interval, so it
+// reaches back at most that resolution's retention.
+func (q *Querier) Alerts(s Span, withPoints bool) (AlertsAnswer, error) {
+	p, err := q.Plan(s)
+	if err != nil {
+		return AlertsAnswer{}, err
+	}
+	iv := q.p.AlertInterval
+	res := -1
+	for i, r := range q.res {
+		if iv%r.Step == 0 {
+			res = i
+			break
+		}
+	}
+	if res < 0 {
+		return AlertsAnswer{}, fmt.Errorf("the alert interval %s is not a multiple of any bucket size", iv)
+	}
+	step := int64(iv / time.Second)
+	from := tally.FloorDiv(p.From.Unix(), step) * step
+	to := (tally.FloorDiv(p.To.Unix()-1, step) + 1) * step
+	warm := from - int64(q.p.Alert.Baseline)*step
+	if r := q.res[res].Retention; r > 0 {
+		if keep := q.maxSeen.Unix() - int64(r/time.Second); warm < keep {
+			warm = (tally.FloorDiv(keep, step) + 1) * step
+		}
+	}
+	if warm > from {
+		from = warm
+	}
+	buckets := map[int64]tally.Table{}
+	err = q.r.Buckets(res, tally.Funnel, warm, to, func(b int64, t tally.Table) error {
+		k := tally.FloorDiv(b, step) * step
+		if buckets[k] == nil {
+			buckets[k] = tally.Table{}
+		}
+		buckets[k].AddTable(t)
+		return nil
+	})
+	if err != nil {
+		return AlertsAnswer{}, err
+	}
+	series := CartIntervals(time.Unix(warm, 0), time.Unix(to, 0), iv, buckets)
+	all, err := Alerts(Plan{From: time.Unix(warm, 0).UTC(), To: time.Unix(to, 0).UTC()}, iv, series, q.p.Alert, withPoints)
+	if err != nil {
+		return AlertsAnswer{}, err
+	}
+	a := AlertsAnswer{From: FormatTime(time.Unix(from, 0)), To: FormatTime(time.Unix(to, 0)), Interval: all.Interval, Alerts: []AlertRecord{}}
+	for _, al := range all.Alerts {
+		opened, _ := time.Parse(time.RFC3339, al.Opened)
+		closed, _ := time.Parse(time.RFC3339, al.Closed)
+		if opened.Unix() < to && (al.Open || closed.Unix() > from) {
+			a.Alerts = append(a.Alerts, al)
+		}
+	}
+	for _, pt := range all.Points {
+		st, _ := time.Parse(time.RFC3339, pt.Start)
+		if st.Unix() >= from {
+			a.Points = append(a.Points, pt)
+		}
+	}
+	return a, nil
 }
 
 // ShiftAnswer is the answer of `query shift`: credit per channel per day.
@@ -127,82 +289,52 @@ type ShiftCell struct {
 }
 
 // Shift answers `query shift`: the last `days` UTC days up to and including
-// the day of the latest event.
-func (q *Querier) Shift(model string, days int) (ShiftAnswer, error) {
-	m, err := credit.ParseModel(model)
-	if err != nil {
-		return ShiftAnswer{}, err
+// the day of the latest event, each day credited on its own.
+func (q *Querier) Shift(model string, order int, days int) (ShiftAnswer, error) {
+	if !IsDataDriven(model) {
+		if _, err := credit.ParseModel(model); err != nil {
+			return ShiftAnswer{}, err
+		}
 	}
 	if days < 1 || days > 3660 {
 		return ShiftAnswer{}, fmt.Errorf("--days must be between 1 and 3660, got %d", days)
 	}
 	last := q.maxSeen.Truncate(24 * time.Hour)
-	a := ShiftAnswer{Model: m.String()}
+	a := ShiftAnswer{Model: model}
 	seen := map[string]bool{}
-	prev := map[string]ShiftCell{}
+	var perDay []map[string]ShiftCell
 	for i := days - 1; i >= 0; i-- {
 		day := last.AddDate(0, 0, -i)
-		p, err := PlanWindow(q.res, day, day.Add(24*time.Hour), q.maxSeen)
+		c, err := q.Credit(model, ByChannel, order, Span{From: day, To: day.Add(24 * time.Hour)})
 		if err != nil {
 			return ShiftAnswer{}, err
 		}
-		totals, err := q.Table(p, tally.Totals)
-		if err != nil {
-			return ShiftAnswer{}, err
-		}
-		ct, err := q.Table(p, tally.Credit)
-		if err != nil {
-			return ShiftAnswer{}, err
-		}
-		c := RuleCredit(m.String(), ByChannel, p, totals, ct)
-		d := ShiftDay{Day: day.Format("2006-01-02"), Conversions: c.Conversions, Value: c.Value}
-		for _, ch := range c.Channels {
-			seen[ch.Channel] = true
-		}
-		a.Days = append(a.Days, d)
+		a.Model = c.Model
+		a.Days = append(a.Days, ShiftDay{Day: day.Format("2006-01-02"), Conversions: c.Conversions, Value: c.Value})
 		cur := map[string]ShiftCell{}
 		for _, ch := range c.Channels {
+			seen[ch.Channel] = true
 			cur[ch.Channel] = ShiftCell{Channel: ch.Channel, Conversions: ch.Conversions, Value: ch.Value, Share: ch.Share}
 		}
-		a.Days[len(a.Days)-1].Channels = nil
-		for name := range seen {
-			cell := cur[name]
-			cell.Channel = name
-			if i != days-1 {
-				cell.Change = cell.Conversions - prev[name].Conversions
-				cell.ShareChange = cell.Share - prev[name].Share
-			}
-			cur[name] = cell
-		}
-		prev = cur
-		a.Days[len(a.Days)-1].Channels = cellsOf(cur)
+		perDay = append(perDay, cur)
 	}
 	for name := range seen {
 		a.Channels = append(a.Channels, name)
 	}
 	sort.Strings(a.Channels)
-	// Fill channels first seen on a later day into earlier days as zeros.
 	for i := range a.Days {
-		have := map[string]bool{}
-		for _, c := range a.Days[i].Channels {
-			have[c.Channel] = true
-		}
 		for _, name := range a.Channels {
-			if !have[name] {
-				a.Days[i].Channels = append(a.Days[i].Channels, ShiftCell{Channel: name})
+			cell := perDay[i][name]
+			cell.Channel = name
+			if i > 0 {
+				prev := perDay[i-1][name]
+				cell.Change = cell.Conversions - prev.Conversions
+				cell.ShareChange = cell.Share - prev.Share
 			}
+			a.Days[i].Channels = append(a.Days[i].Channels, cell)
 		}
-		sort.Slice(a.Days[i].Channels, func(x, y int) bool { return a.Days[i].Channels[x].Channel < a.Days[i].Channels[y].Channel })
 	}
 	return a, nil
-}
-
-func cellsOf(m map[string]ShiftCell) []ShiftCell {
-	out := make([]ShiftCell, 0, len(m))
-	for _, c := range m {
-		out = append(out, c)
-	}
-	return out
 }
 
 // Summary is what a data directory holds, for `query status`.

@@ -24,6 +24,14 @@ type Params struct {
 	Credit         credit.Params // model parameters, including the direct channel's name
 	MaxPath        int           // actions of a session kept in state (later ones are counted, not kept)
 	MaxTouches     int           // touches of an open journey kept in state (the oldest are dropped)
+
+	// Path statistics (see aggregates.go). PathStats false skips them.
+	PathStats       bool
+	FunnelSteps     []string // ordered funnel steps (closed funnel)
+	CartStep        string   // sessions reaching it count towards cart abandonment
+	MarkovMaxOrder  int      // channel transitions are kept for orders 1..this
+	CollapseRepeats bool     // collapse consecutive repeats of a channel in Markov paths
+	PathMaxLen      int      // path keys show at most this many steps
 }
 
 // Validate reports the first invalid parameter.
@@ -43,6 +51,8 @@ func (p Params) Validate() error {
 		return fmt.Errorf("the direct channel needs a name")
 	case p.MaxPath <= 0 || p.MaxTouches <= 0:
 		return fmt.Errorf("path and touch limits must be positive")
+	case p.PathStats && (len(p.FunnelSteps) == 0 || p.MarkovMaxOrder < 1 || p.MarkovMaxOrder > 9 || p.PathMaxLen < 1):
+		return fmt.Errorf("path statistics need funnel steps, a Markov order of 1 to 9 and a path length >= 1")
 	}
 	return nil
 }
@@ -59,6 +69,11 @@ type Tracker struct {
 	nano     []int64
 	value    []int64
 	models   []string // model names, index = credit.Model
+	trans    []credit.Transition
+	chans    []string
+	set      []string
+	orders   []string // "k" + RS, index k
+	depths   []string // decimal funnel depths
 }
 
 // NewTracker returns a tracker for p.
@@ -74,6 +89,7 @@ func NewTracker(p Params) (*Tracker, error) {
 	for _, m := range credit.RuleModels {
 		t.models[m] = m.String()
 	}
+	t.initAggregates()
 	return t, nil
 }
 
@@ -123,6 +139,7 @@ func (t *Tracker) expireJourney(u *UserState, now int64) {
 func (t *Tracker) touch(u *UserState, e *event.Event, now int64, b *tally.Batch) {
 	b.Add(tally.Activity, now, "", tally.Vec{0, 0, 1})
 	t.expireJourney(u, now)
+	t.openJourneyAgg(b, u, -1)
 	if len(u.Touches) >= t.p.MaxTouches {
 		u.Touches = append(u.Touches[:0], u.Touches[len(u.Touches)-t.p.MaxTouches+1:]...)
 	}
@@ -132,10 +149,12 @@ func (t *Tracker) touch(u *UserState, e *event.Event, now int64, b *tally.Batch)
 		Time:     now,
 		View:     e.Interaction == event.View,
 	})
+	t.openJourneyAgg(b, u, +1)
 }
 
 func (t *Tracker) action(u *UserState, e *event.Event, now int64, b *tally.Batch) {
 	if u.LastAction == 0 || now-u.LastAction >= int64(t.p.SessionGap) {
+		// The previous session, if any, ended: its contribution is final.
 		u.Sessions++
 		u.SessionStart = now
 		u.Path = u.Path[:0]
@@ -143,12 +162,14 @@ func (t *Tracker) action(u *UserState, e *event.Event, now int64, b *tally.Batch
 		b.Add(tally.Activity, now, "", tally.Vec{1, 1, 0})
 	} else {
 		b.Add(tally.Activity, now, "", tally.Vec{0, 1, 0})
+		t.sessionAgg(b, u, -1)
 	}
 	u.LastAction = now
 	u.PathLen++
 	if len(u.Path) < t.p.MaxPath {
 		u.Path = append(u.Path, e.Action)
 	}
+	t.sessionAgg(b, u, +1)
 	if t.conv[e.Action] {
 		t.convert(u, e, now, b)
 	}
@@ -173,8 +194,16 @@ func (t *Tracker) Eligible(dst []Touch, u *UserState, now int64) []Touch {
 func (t *Tracker) convert(u *UserState, e *event.Event, now int64, b *tally.Batch) {
 	b.Add(tally.Totals, now, "", tally.Vec{1, e.Value, 0})
 	t.expireJourney(u, now)
+	t.openJourneyAgg(b, u, -1)
 	t.eligible = t.Eligible(t.eligible[:0], u, now)
 	u.Touches = u.Touches[:0]
+	if t.p.PathStats {
+		t.chans = t.chans[:0]
+		for _, tc := range t.eligible {
+			t.chans = append(t.chans, tc.Channel)
+		}
+		t.journeyAgg(b, t.chans, true, e.Value, now, +1)
+	}
 	if len(t.eligible) == 0 {
 		for _, name := range t.models {
 			b.Add(tally.Credit, now, name+tally.Sep+t.p.Credit.Direct+tally.Sep, tally.Vec{NanoPerConversion, e.Value, 0})

@@ -1,0 +1,469 @@
+package query
+
+import (
+	"errors"
+	"fmt"
+	"sort"
+	"strconv"
+	"strings"
+	"time"
+
+	"github.com/touchledger/touchledger/internal/alert"
+	"github.com/touchledger/touchledger/internal/credit"
+	"github.com/touchledger/touchledger/internal/event"
+	"github.com/touchledger/touchledger/internal/sessionize"
+	"github.com/touchledger/touchledger/internal/tally"
+)
+
+// Params are the query-time settings of the data-driven models, paths,
+// funnel and alerts (from the configuration file).
+type Params struct {
+	Direct         string
+	MarkovMaxOrder int
+	ShapleyCap     int
+	FunnelSteps    []string
+	CartStep       string
+	AlertInterval  time.Duration
+	Alert          alert.Params // Baseline in intervals
+}
+
+// Data-driven model names.
+const (
+	ModelMarkov  = "markov"
+	ModelShapley = "shapley"
+)
+
+// IsDataDriven reports whether model is computed from journey aggregates.
+func IsDataDriven(model string) bool { return model == ModelMarkov || model == ModelShapley }
+
+// journeySplit returns the conversions and value of journeys that have a
+// channel path, and of conversions without an eligible touch (credited to
+// the direct channel in full).
+func journeySplit(coal tally.Table) (withPath tally.Vec, noPath tally.Vec) {
+	for dims, v := range coal {
+		if dims == "" {
+			noPath = noPath.Add(v)
+		} else {
+			withPath = withPath.Add(v)
+		}
+	}
+	return withPath, noPath
+}
+
+// DataDrivenCredit builds the credit answer of the Markov or Shapley model
+// from a window's Totals, ChannelTransitions and Coalitions tables.
+//
+// credit(c) = share(c) × conversions with a path (and × their value); the
+// direct channel also gets every conversion that had no eligible touch.
+// Markov shares are removal effects normalised over channels (Anderl et al.
+// 2016); Shapley shares are Shapley values (Shapley 1953) of the
+// conversion-rate value function normalised over channels, and may be
+// negative.
+func DataDrivenCredit(model string, order int, plan Plan, p Params, totals, trans, coal tally.Table) (CreditAnswer, error) {
+	a := CreditAnswer{Model: model, From: FormatTime(plan.From), To: FormatTime(plan.To), Rounded: plan.Rounded, By: ByChannel}
+	tot := totals[""]
+	a.Conversions = tot[0]
+	a.Value = float64(tot[1]) / event.ValueScale
+	withPath, noPath := journeySplit(coal)
+	var channels []string
+	var shares []float64
+	var journeys []int64
+	switch model {
+	case ModelMarkov:
+		a.Model = fmt.Sprintf("markov (order %d)", order)
+		counts := TransitionCounts(trans, order)
+		if len(counts) > 0 {
+			r, err := credit.Markov(counts)
+			switch {
+			case errors.Is(err, credit.ErrNoConversionPath):
+				a.Notes = append(a.Notes, "no journey with a touch converted in this window: the Markov model has nothing to share")
+			case errors.Is(err, credit.ErrNoRemovalEffect):
+				a.Notes = append(a.Notes, "no channel has a removal effect in this window")
+			case err != nil:
+				return CreditAnswer{}, err
+			default:
+				channels, shares = r.Channels, r.Share
+				a.Notes = append(a.Notes, fmt.Sprintf("conversion probability from start %.4f", r.PConversion))
+			}
+		}
+	case ModelShapley:
+		var cs []credit.Coalition
+		for dims, v := range coal {
+			if dims == "" || (v[0] == 0 && v[1] == 0) {
+				continue
+			}
+			cs = append(cs, credit.Coalition{Channels: tally.Split(dims), Journeys: v[0], Conversions: v[1], Value: v[2]})
+		}
+		sort.Slice(cs, func(i, j int) bool { return strings.Join(cs[i].Channels, ",") < strings.Join(cs[j].Channels, ",") })
+		if len(cs) > 0 {
+			r, err := credit.Shapley(cs, p.ShapleyCap, "other")
+			switch {
+			case errors.Is(err, credit.ErrNoConversions):
+				a.Notes = append(a.Notes, "no journey with a touch converted in this window: the Shapley model has nothing to share")
+			case err != nil:
+				return CreditAnswer{}, err
+			default:
+				channels, shares, journeys = r.Channels, r.Share, r.Journeys
+				for _, s := range shares {
+					if s < 0 {
+						a.Notes = append(a.Notes, "negative shares: those channels' journeys convert less often than journeys without them")
+						break
+					}
+				}
+			}
+		}
+	default:
+		return CreditAnswer{}, fmt.Errorf("unknown data-driven model %q", model)
+	}
+	rows := map[string]*ChannelCredit{}
+	for i, ch := range channels {
+		c := &ChannelCredit{
+			Channel:     ch,
+			Conversions: shares[i] * float64(withPath[1]),
+			Value:       shares[i] * float64(withPath[2]) / event.ValueScale,
+		}
+		if journeys != nil {
+			j := journeys[i]
+			c.Journeys = &j
+		}
+		rows[ch] = c
+	}
+	if noPath[1] != 0 {
+		c := rows[p.Direct]
+		if c == nil {
+			c = &ChannelCredit{Channel: p.Direct}
+			if journeys != nil {
+				var zero int64
+				c.Journeys = &zero
+			}
+			rows[p.Direct] = c
+		}
+		c.Conversions += float64(noPath[1])
+		c.Value += float64(noPath[2]) / event.ValueScale
+	}
+	var sum float64
+	for _, c := range rows {
+		sum += c.Conversions
+	}
+	for _, c := range rows {
+		if sum != 0 {
+			c.Share = c.Conversions / sum
+		}
+		a.Channels = append(a.Channels, *c)
+	}
+	SortChannels(a.Channels)
+	if a.Channels == nil {
+		a.Channels = []ChannelCredit{}
+	}
+	return a, nil
+}
+
+// TransitionCounts extracts the channel transitions of one order.
+func TransitionCounts(trans tally.Table, order int) []credit.TransitionCount {
+	prefix := strconv.Itoa(order) + sessionize.RS
+	var out []credit.TransitionCount
+	for dims, v := range trans {
+		if !strings.HasPrefix(dims, prefix) || v[0] == 0 {
+			continue
+		}
+		parts := strings.SplitN(dims[len(prefix):], sessionize.RS, 2)
+		if len(parts) != 2 {
+			continue
+		}
+		out = append(out, credit.TransitionCount{From: parts[0], To: parts[1], Count: v[0]})
+	}
+	sort.Slice(out, func(i, j int) bool {
+		if out[i].From != out[j].From {
+			return out[i].From < out[j].From
+		}
+		return out[i].To < out[j].To
+	})
+	return out
+}
+
+// TransitionsAnswer is the answer of `query transitions`.
+type TransitionsAnswer struct {
+	Level       string       `json:"level"`
+	Order       int          `json:"order,omitempty"`
+	From        string       `json:"from"`
+	To          string       `json:"to"`
+	Transitions []Transition `json:"transitions"`
+}
+
+// Transition is one row: a count and its share of the From row.
+type Transition struct {
+	From        string  `json:"from"`
+	To          string  `json:"to"`
+	Count       int64   `json:"count"`
+	Probability float64 `json:"probability"`
+}
+
+// stateLabel names a Markov state for people.
+func stateLabel(s string) string {
+	switch s {
+	case credit.StateStart:
+		return "START"
+	case credit.StateConversion:
+		return "CONVERSION"
+	case credit.StateNull:
+		return "NULL"
+	}
+	return strings.Join(credit.StateChannels(s), ">")
+}
+
+// Transitions builds a transition matrix with row probabilities p(a,b) =
+// c(a,b) / Σ_b' c(a,b').
+func Transitions(level string, order int, plan Plan, t tally.Table) TransitionsAnswer {
+	a := TransitionsAnswer{Level: level, From: FormatTime(plan.From), To: FormatTime(plan.To)}
+	var rows []Transition
+	if level == "channel" {
+		a.Order = order
+		for _, c := range TransitionCounts(t, order) {
+			rows = append(rows, Transition{From: stateLabel(c.From), To: stateLabel(c.To), Count: c.Count})
+		}
+	} else {
+		for dims, v := range t {
+			if v[0] == 0 {
+				continue
+			}
+			p := strings.SplitN(dims, tally.Sep, 2)
+			if len(p) == 2 {
+				rows = append(rows, Transition{From: p[0], To: p[1], Count: v[0]})
+			}
+		}
+	}
+	out := map[string]int64{}
+	for _, r := range rows {
+		out[r.From] += r.Count
+	}
+	for i := range rows {
+		rows[i].Probability = float64(rows[i].Count) / float64(out[rows[i].From])
+	}
+	rank := func(s string) int {
+		switch s {
+		case "START":
+			return 0
+		case "CONVERSION", "END":
+			return 2
+		case "NULL":
+			return 3
+		}
+		return 1
+	}
+	sort.Slice(rows, func(i, j int) bool {
+		x, y := rows[i], rows[j]
+		if rank(x.From) != rank(y.From) {
+			return rank(x.From) < rank(y.From)
+		}
+		if x.From != y.From {
+			return x.From < y.From
+		}
+		if x.Count != y.Count {
+			return x.Count > y.Count
+		}
+		return x.To < y.To
+	})
+	a.Transitions = rows
+	if a.Transitions == nil {
+		a.Transitions = []Transition{}
+	}
+	return a
+}
+
+// PathsAnswer is the answer of `query paths`.
+type PathsAnswer struct {
+	Level string     `json:"level"`
+	From  string     `json:"from"`
+	To    string     `json:"to"`
+	Total int64      `json:"total"` // sessions or journeys in the window
+	Paths []PathStat `json:"paths"`
+}
+
+// PathStat is one path with its count and conversion rate.
+type PathStat struct {
+	Path           string  `json:"path"`
+	Count          int64   `json:"count"`
+	Share          float64 `json:"share"`
+	Conversions    int64   `json:"conversions"`
+	ConversionRate float64 `json:"conversion_rate"`
+}
+
+// Paths lists the top most frequent paths (exact counts). Action paths are
+// whole sessions; channel paths are journeys ending in conversion or null
+// (for a channel path the conversion rate is 1 or 0 by construction).
+func Paths(level string, top int, plan Plan, t tally.Table) PathsAnswer {
+	a := PathsAnswer{Level: level, From: FormatTime(plan.From), To: FormatTime(plan.To)}
+	var rows []PathStat
+	for dims, v := range t {
+		if v[0] == 0 {
+			continue
+		}
+		path := dims
+		if level == "channel" {
+			p := strings.SplitN(dims, tally.Sep, 2)
+			if len(p) == 2 {
+				end := "NULL"
+				if p[1] == sessionize.EndConversion {
+					end = "CONVERSION"
+				}
+				path = p[0] + " > " + end
+			}
+		}
+		rows = append(rows, PathStat{Path: path, Count: v[0], Conversions: v[1]})
+		a.Total += v[0]
+	}
+	sort.Slice(rows, func(i, j int) bool {
+		if rows[i].Count != rows[j].Count {
+			return rows[i].Count > rows[j].Count
+		}
+		return rows[i].Path < rows[j].Path
+	})
+	if top > 0 && len(rows) > top {
+		rows = rows[:top]
+	}
+	for i := range rows {
+		rows[i].Share = float64(rows[i].Count) / float64(a.Total)
+		rows[i].ConversionRate = float64(rows[i].Conversions) / float64(rows[i].Count)
+	}
+	a.Paths = rows
+	if a.Paths == nil {
+		a.Paths = []PathStat{}
+	}
+	return a
+}
+
+// FunnelAnswer is the answer of `query funnel`.
+type FunnelAnswer struct {
+	From              string       `json:"from"`
+	To                string       `json:"to"`
+	Sessions          int64        `json:"sessions"`
+	Steps             []FunnelStep `json:"steps"`
+	CartSessions      int64        `json:"cart_sessions"`
+	CartAbandonment   float64      `json:"cart_abandonment"`
+	OverallConversion float64      `json:"overall_conversion"` // last step / first step
+}
+
+// FunnelStep is one step of a closed funnel: sessions that reached it in
+// order, and the share of those that did not reach the next step.
+type FunnelStep struct {
+	Step        string  `json:"step"`
+	Sessions    int64   `json:"sessions"`
+	Abandonment float64 `json:"abandonment"` // 1 − next/this; 0 for the last step
+}
+
+// Funnel builds the closed funnel over sessions whose last event lies in the
+// window: reached(i) = sessions with depth > i; abandonment(i) = 1 −
+// reached(i+1)/reached(i) (common practice); cart abandonment = cart
+// sessions without a conversion / cart sessions.
+func Funnel(steps []string, plan Plan, t tally.Table) FunnelAnswer {
+	a := FunnelAnswer{From: FormatTime(plan.From), To: FormatTime(plan.To)}
+	reached := make([]int64, len(steps))
+	var cart, cartConv int64
+	for dims, v := range t {
+		d, err := strconv.Atoi(dims)
+		if err != nil || d < 0 {
+			continue
+		}
+		a.Sessions += v[0]
+		for i := 0; i < d && i < len(steps); i++ {
+			reached[i] += v[0]
+		}
+		cart += v[1]
+		cartConv += v[2]
+	}
+	for i, s := range steps {
+		st := FunnelStep{Step: s, Sessions: reached[i]}
+		if i+1 < len(steps) && reached[i] > 0 {
+			st.Abandonment = 1 - float64(reached[i+1])/float64(reached[i])
+		}
+		a.Steps = append(a.Steps, st)
+	}
+	a.CartSessions = cart
+	if cart > 0 {
+		a.CartAbandonment = float64(cart-cartConv) / float64(cart)
+	}
+	if len(steps) > 0 && reached[0] > 0 {
+		a.OverallConversion = float64(reached[len(steps)-1]) / float64(reached[0])
+	}
+	return a
+}
+
+// AlertsAnswer is the answer of `query alerts`.
+type AlertsAnswer struct {
+	From     string        `json:"from"`
+	To       string        `json:"to"`
+	Interval string        `json:"interval"`
+	Alerts   []AlertRecord `json:"alerts"`
+	Points   []AlertPoint  `json:"points,omitempty"`
+}
+
+// AlertRecord is one abandonment alert.
+type AlertRecord struct {
+	Name     string  `json:"name"`
+	Opened   string  `json:"opened"`
+	Closed   string  `json:"closed,omitempty"` // empty while open
+	Open     bool    `json:"open"`
+	Rate     float64 `json:"rate"`
+	Baseline float64 `json:"baseline"`
+	Limit    float64 `json:"limit"`
+	Peak     float64 `json:"peak"`
+}
+
+// AlertPoint is one interval of the chart.
+type AlertPoint struct {
+	Start     string  `json:"start"`
+	Sessions  int64   `json:"sessions"`
+	Abandons  int64   `json:"abandons"`
+	Rate      float64 `json:"rate"`
+	Statistic float64 `json:"statistic"`
+	Baseline  float64 `json:"baseline"`
+	Limit     float64 `json:"limit"`
+	Alerting  bool    `json:"alerting"`
+}
+
+// CartIntervals turns per-bucket funnel tables into the cart-abandonment
+// series: per interval, sessions that reached the cart step (by session end)
+// and those of them that did not convert. Buckets must be interval-aligned
+// and at most one interval long.
+func CartIntervals(from, to time.Time, interval time.Duration, buckets map[int64]tally.Table) []alert.Interval {
+	step := int64(interval / time.Second)
+	var out []alert.Interval
+	for s := from.Unix(); s < to.Unix(); s += step {
+		out = append(out, alert.Interval{Start: time.Unix(s, 0).UTC()})
+	}
+	for b, t := range buckets {
+		i := (b - from.Unix()) / step
+		if i < 0 || int(i) >= len(out) {
+			continue
+		}
+		for _, v := range t {
+			out[i].Sessions += v[1]
+			out[i].Abandons += v[1] - v[2]
+		}
+	}
+	return out
+}
+
+// Alerts runs the abandonment detector over the series.
+func Alerts(plan Plan, interval time.Duration, series []alert.Interval, p alert.Params, withPoints bool) (AlertsAnswer, error) {
+	a := AlertsAnswer{From: FormatTime(plan.From), To: FormatTime(plan.To), Interval: interval.String(), Alerts: []AlertRecord{}}
+	pts, als, err := alert.Detect(series, p)
+	if err != nil {
+		return a, err
+	}
+	for _, x := range als {
+		r := AlertRecord{Name: "cart_abandonment", Opened: FormatTime(x.Opened), Open: x.Closed.IsZero(),
+			Rate: x.Rate, Baseline: x.Baseline, Limit: x.Limit, Peak: x.Peak}
+		if !x.Closed.IsZero() {
+			r.Closed = FormatTime(x.Closed)
+		}
+		a.Alerts = append(a.Alerts, r)
+	}
+	if withPoints {
+		for _, pt := range pts {
+			a.Points = append(a.Points, AlertPoint{Start: FormatTime(pt.Start), Sessions: pt.Sessions, Abandons: pt.Abandons,
+				Rate: pt.Rate, Statistic: pt.Statistic, Baseline: pt.Baseline, Limit: pt.UCL, Alerting: pt.Alerting})
+		}
+	}
+	return a, nil
+}
