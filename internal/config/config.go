@@ -64,7 +64,7 @@ type Alert struct {
 // Store configures the embedded Badger store and the commit cadence.
 type Store struct {
 	// Resolutions are the bucket sizes counters are kept at, finest first.
-	// Default: minute (1m, kept 3d), hour (1h, kept 90d), day (1d, kept
+	// Default: 5m (kept 14d, long enough for the 7-day alert baseline), hour (1h, kept 90d), day (1d, kept
 	// forever).
 	Resolutions []Resolution `yaml:"resolutions"`
 	// CacheUsers is how many users' session and journey state stay in
@@ -203,7 +203,7 @@ func Default() Config {
 		},
 		Store: Store{
 			Resolutions: []Resolution{
-				{Name: "minute", Step: Duration(time.Minute), Retention: Duration(3 * day)},
+				{Name: "5m", Step: Duration(5 * time.Minute), Retention: Duration(14 * day)},
 				{Name: "hour", Step: Duration(time.Hour), Retention: Duration(90 * day)},
 				{Name: "day", Step: Duration(day), Retention: 0},
 			},

@@ -49,7 +49,7 @@ func TestDefault(t *testing.T) {
 			Baseline: Duration(168 * time.Hour), CloseAfter: 3},
 		Store: Store{
 			Resolutions: []Resolution{
-				{"minute", Duration(time.Minute), Duration(72 * time.Hour)},
+				{"5m", Duration(5 * time.Minute), Duration(14 * 24 * time.Hour)},
 				{"hour", Duration(time.Hour), Duration(2160 * time.Hour)},
 				{"day", Duration(24 * time.Hour), 0},
 			},
@@ -270,13 +270,13 @@ func TestValidate(t *testing.T) {
 		{"alert close after 0", func(c *Config) { c.Alert.CloseAfter = 0 }, []string{"alert.close_after"}},
 		{"no resolutions", func(c *Config) { c.Store.Resolutions = nil }, []string{"store.resolutions"}},
 		{"resolution without a name", func(c *Config) { c.Store.Resolutions[1].Name = "" }, []string{"store.resolutions[1].name"}},
-		{"resolution names repeat", func(c *Config) { c.Store.Resolutions[2].Name = "minute" }, []string{"store.resolutions[2].name"}},
+		{"resolution names repeat", func(c *Config) { c.Store.Resolutions[2].Name = "5m" }, []string{"store.resolutions[2].name"}},
 		{"resolution step zero", func(c *Config) { c.Store.Resolutions[0].Step = 0 }, []string{"store.resolutions[0].step"}},
 		{"resolution step not whole seconds", func(c *Config) { c.Store.Resolutions[0].Step = Duration(1500 * time.Millisecond) }, []string{"store.resolutions[0].step"}},
 		{"resolutions out of order", func(c *Config) {
 			c.Store.Resolutions[0], c.Store.Resolutions[1] = c.Store.Resolutions[1], c.Store.Resolutions[0]
 		}, []string{"store.resolutions[1].step", "alert.interval"}},
-		{"resolution step does not divide the next", func(c *Config) { c.Store.Resolutions[1].Step = Duration(7 * time.Minute) }, []string{"store.resolutions[2].step"}},
+		{"resolution step does not divide the next", func(c *Config) { c.Store.Resolutions[1].Step = Duration(7 * time.Hour) }, []string{"store.resolutions[2].step"}},
 		{"resolution retention negative", func(c *Config) { c.Store.Resolutions[0].Retention = Duration(-time.Hour) }, []string{"store.resolutions[0].retention"}},
 		{"resolution retention below the step", func(c *Config) { c.Store.Resolutions[1].Retention = Duration(time.Minute) }, []string{"store.resolutions[1].retention"}},
 		{"cache users 0", func(c *Config) { c.Store.CacheUsers = 0 }, []string{"store.cache_users"}},

@@ -200,7 +200,7 @@ func (ch *chain) removalEffects(dense int) (MarkovResult, error) {
 // denseProbabilities returns P(CONVERSION | START) without removal and with
 // each removal set, one gonum LU solve per system.
 func (ch *chain) denseProbabilities(removals [][]int32) (float64, []float64, error) {
-	s := newSolver(ch, ch.n)
+	s := newDenseSolver(ch)
 	x := make([]float64, ch.n)
 	if err := s.solve(x, nil); err != nil {
 		return 0, nil, err
@@ -322,7 +322,7 @@ func buildChain(counts []TransitionCount) (*chain, error) {
 				if !ok {
 					ci = int32(len(channels))
 					chanIndex[c] = ci
-					channels = append(channels, c)
+					channels = append(channels, strings.Clone(c))
 				}
 				tuple = append(tuple, ci)
 			}

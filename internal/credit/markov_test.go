@@ -197,6 +197,29 @@ var solverModes = []struct {
 	dense int
 }{{"dense-lu", denseLimit}, {"sweeps", 0}}
 
+// solveStates returns every state's conversion probability with the given
+// states removed, by dense LU or by sweeps.
+func solveStates(t *testing.T, ch *chain, dense int, removed []bool) []float64 {
+	t.Helper()
+	x := make([]float64, ch.n)
+	var err error
+	if ch.n <= dense {
+		err = newDenseSolver(ch).solve(x, removed)
+	} else {
+		var set []int32
+		for i, r := range removed {
+			if r {
+				set = append(set, int32(i))
+			}
+		}
+		err = ch.sweep(x, [][]int32{set}, nil, 0)
+	}
+	if err != nil {
+		t.Fatal(err)
+	}
+	return x
+}
+
 func markovWith(t *testing.T, counts []TransitionCount, dense int) (MarkovResult, error) {
 	t.Helper()
 	ch, err := buildChain(counts)
@@ -309,10 +332,7 @@ func TestMarkovFundamentalMatrix(t *testing.T) {
 						}
 					}
 				}
-				x := make([]float64, ch.n)
-				if err := newSolver(ch, mode.dense).solve(x, nil); err != nil {
-					t.Fatal(err)
-				}
+				x := solveStates(t, ch, mode.dense, nil)
 				for i, s := range tt.states {
 					if got := x[pos[i]]; !near(got, tt.conv[i], 1e-12) {
 						t.Errorf("P(conv | %s) = %v, want %v", s, got, tt.conv[i])
@@ -360,10 +380,7 @@ func TestMarkovStackExchangeRemoval(t *testing.T) {
 			}
 			removed := make([]bool, ch.n)
 			removed[slices.Index(ch.names, notif)] = true
-			x := make([]float64, ch.n)
-			if err := newSolver(ch, mode.dense).solve(x, removed); err != nil {
-				t.Fatal(err)
-			}
+			x := solveStates(t, ch, mode.dense, removed)
 			if want := 5.0 / 44; !near(x[0], want, 1e-12) {
 				t.Errorf("P without %s = %v, want 5/44 = %v", notif, x[0], want)
 			}
@@ -410,6 +427,27 @@ func TestMarkovMergeBuckets(t *testing.T) {
 	}
 	if want := []float64{9.0 / 20, 13.0 / 20, 9.0 / 10}; !nearSlice(sum, want, 1e-12) {
 		t.Errorf("sum of per-bucket credits = %v, want %v", sum, want)
+	}
+}
+
+// The order of the counts does not matter (Markov remembers the last source
+// state only as a shortcut).
+func TestMarkovCountOrder(t *testing.T) {
+	r := rand.New(rand.NewPCG(10, 3))
+	counts := countsOf(randomJourneys(r, 60, 6, 6), 2, true)
+	want, err := Markov(counts)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for range 5 {
+		r.Shuffle(len(counts), func(i, j int) { counts[i], counts[j] = counts[j], counts[i] })
+		got, err := Markov(counts)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if !near(got.PConversion, want.PConversion, 1e-12) || !nearSlice(got.Share, want.Share, 1e-12) {
+			t.Errorf("shuffled counts: P %v shares %v, want P %v shares %v", got.PConversion, got.Share, want.PConversion, want.Share)
+		}
 	}
 }
 

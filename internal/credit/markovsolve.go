@@ -16,8 +16,8 @@ import (
 // dense LU decomposition; larger chains use Gauss–Seidel sweeps over the
 // sparse rows. A Markov answer solves 1 + channels systems: at order 1 (a
 // few dozen states) dense LU costs microseconds, while an order-3 chain over
-// 20 channels has ~8000 states, where one dense LU (2/3·n³ ≈ 3·10¹¹ flops)
-// would take minutes and the sparse sweeps take milliseconds.
+// 20 channels has 7000–8000 states, where one dense LU (2/3·n³ ≈ 3·10¹¹
+// flops) would take minutes and the sparse sweeps take milliseconds.
 const denseLimit = 160
 
 // Gauss–Seidel stopping rule: stop when the estimated remaining error
@@ -29,48 +29,33 @@ const denseLimit = 160
 const (
 	relTol    = 1e-10
 	absFloor  = 1e-30
-	maxSweeps = 200000
+	maxSweeps = 10000
 )
 
-// solver solves (I − Q) x = r for a chain, optionally with some states
-// removed (their x fixed at 0, every transition into them going to NULL).
-type solver struct {
-	ch    *chain
-	dense bool
-	a     *mat.Dense
-	rhs   *mat.VecDense
-	sol   *mat.VecDense
-	lu    mat.LU
+// denseSolver solves (I − Q) x = r for a chain with gonum's LU
+// decomposition, optionally with some states removed (x fixed at 0 there,
+// every transition into them going to NULL).
+type denseSolver struct {
+	ch  *chain
+	a   *mat.Dense
+	rhs *mat.VecDense
+	sol *mat.VecDense
+	lu  mat.LU
 }
 
-func newSolver(ch *chain, denseMax int) *solver {
-	s := &solver{ch: ch, dense: ch.n <= denseMax}
-	if s.dense {
-		s.a = mat.NewDense(ch.n, ch.n, nil)
-		s.rhs = mat.NewVecDense(ch.n, nil)
-		s.sol = mat.NewVecDense(ch.n, nil)
+func newDenseSolver(ch *chain) *denseSolver {
+	return &denseSolver{
+		ch:  ch,
+		a:   mat.NewDense(ch.n, ch.n, nil),
+		rhs: mat.NewVecDense(ch.n, nil),
+		sol: mat.NewVecDense(ch.n, nil),
 	}
-	return s
 }
 
-// solve writes the conversion probability of every transient state into x.
-// removed (nil: none) marks the states sent to NULL.
-func (s *solver) solve(x []float64, removed []bool) error {
-	if s.dense {
-		return s.solveDense(x, removed)
-	}
-	var set []int32
-	for i, r := range removed {
-		if r {
-			set = append(set, int32(i))
-		}
-	}
-	return s.ch.sweep(x, [][]int32{set}, nil, 0)
-}
-
-// solveDense builds I − Q with removed states as identity rows (x = 0) and
-// zero columns, and solves it with gonum's LU decomposition.
-func (s *solver) solveDense(x []float64, removed []bool) error {
+// solve writes the conversion probability of every transient state into x;
+// removed (nil: none) marks the states sent to NULL. It builds I − Q with
+// removed states as identity rows (x = 0) and zero columns.
+func (s *denseSolver) solve(x []float64, removed []bool) error {
 	ch := s.ch
 	s.a.Zero()
 	for i := range ch.n {
@@ -101,8 +86,8 @@ func (s *solver) solveDense(x []float64, removed []bool) error {
 
 // maxSweepColumns caps the removal systems one Gauss–Seidel run solves
 // together: their values sit side by side per state, so each edge is loaded
-// once per run for all of them, and 12 columns of ~8000 states (0.75 MiB)
-// stay in a core's cache.
+// once per run for all of them, while 12 columns of ~8000 states (values
+// and last changes, 1.5 MiB) still fit a core's cache.
 const maxSweepColumns = 12
 
 // sweepProbabilities returns P(CONVERSION | START) without removal and with
@@ -333,7 +318,9 @@ func (ch *chain) relaxOne(x, diff []float64, skip []bool) float64 {
 		nv := (a + b) * inv[i]
 		d := nv - x[i]
 		diff[i] = d
-		delta = max(delta, math.Abs(d))
+		if ad := math.Abs(d); ad > delta {
+			delta = ad
+		}
 		x[i] = nv
 	}
 	return delta
@@ -341,8 +328,8 @@ func (ch *chain) relaxOne(x, diff []float64, skip []bool) float64 {
 
 // relaxMany is one Gauss–Seidel sweep of m = len(acc) systems stored side
 // by side (x[s·m + j]); remSys[remStart[s]:remStart[s+1]] lists the systems
-// in which state s is removed. Four systems at a time keep their sums in
-// registers while the row's edges are read. delta receives each system's
+// in which state s is removed. Four systems at a time (then two, then one)
+// keep their sums in registers while the row's edges are read. delta receives each system's
 // largest change.
 func (ch *chain) relaxMany(x, diff, delta, acc []float64, remStart, remSys []int32) {
 	rowStart, col, prob, conv, inv := ch.rowStart, ch.col, ch.prob, ch.conv, ch.invStay
@@ -367,7 +354,19 @@ func (ch *chain) relaxMany(x, diff, delta, acc []float64, remStart, remSys []int
 			}
 			acc[j], acc[j+1], acc[j+2], acc[j+3] = a0, a1, a2, a3
 		}
-		for ; j < m; j++ {
+		if j+2 <= m {
+			a0, a1 := r, r
+			for e, c := range cols {
+				p := ps[e]
+				t := int(c)*m + j
+				xt := x[t : t+2 : t+2]
+				a0 += p * xt[0]
+				a1 += p * xt[1]
+			}
+			acc[j], acc[j+1] = a0, a1
+			j += 2
+		}
+		if j < m {
 			a := r
 			for e, c := range cols {
 				a += ps[e] * x[int(c)*m+j]
@@ -387,7 +386,9 @@ func (ch *chain) relaxMany(x, diff, delta, acc []float64, remStart, remSys []int
 			nv := acc[j] * f
 			d := nv - v
 			di[j] = d
-			delta[j] = max(delta[j], math.Abs(d))
+			if ad := math.Abs(d); ad > delta[j] {
+				delta[j] = ad
+			}
 			xi[j] = nv
 		}
 	}

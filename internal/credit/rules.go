@@ -218,8 +218,9 @@ func positionWeights(p Params, dst []float64) {
 	dst[n-1] = p.Last / total
 }
 
-// smallApportion is the largest n for which Apportion ranks remainders on
-// the stack; longer weight lists sort an index slice (one allocation).
+// smallApportion is the largest n for which Apportion keeps the remainders
+// on the stack; longer weight lists use a heap slice and sort an index
+// slice.
 const smallApportion = 64
 
 // snapRel is the relative distance under which a quota is taken to be the
@@ -227,12 +228,15 @@ const smallApportion = 64
 // integer share must not lose a unit to rounding noise.
 const snapRel = 1e-14
 
-// quota returns the integer part and the fractional remainder of
-// total·w/sum, snapping values within rounding noise of an integer.
-func quota(total int64, w, sum float64) (int64, float64) {
-	q := float64(total) * w / sum
+// quota returns the integer part and the fractional remainder of q,
+// snapping values within rounding noise of an integer.
+func quota(q float64) (int64, float64) {
 	r := math.Round(q)
-	if math.Abs(q-r) <= snapRel*math.Max(1, q) {
+	tol := snapRel
+	if q > 1 {
+		tol *= q
+	}
+	if d := q - r; d <= tol && d >= -tol {
 		return int64(r), 0
 	}
 	f := math.Floor(q)
@@ -244,7 +248,8 @@ func quota(total int64, w, sum float64) (int64, float64) {
 // gets floor(total·w_i/Σw), and the units left over go one each to the
 // largest fractional remainders, ties to the lower index. The result sums
 // exactly to total. It is written into dst[:len(w)] and returned; no
-// allocation when cap(dst) >= len(w) and len(w) <= 64. If Σw is not a
+// allocation when cap(dst) >= len(w) and len(w) <= 64. Shares are computed
+// in float64, so they are exact for totals below 2^53. If Σw is not a
 // positive finite number the weights are taken as equal. An empty w gives
 // dst[:0].
 func Apportion(total int64, w []float64, dst []int64) []int64 {
@@ -258,15 +263,6 @@ func Apportion(total int64, w []float64, dst []int64) []int64 {
 		sum += x
 	}
 	equal := !(sum > 0) || math.IsInf(sum, 0)
-	weight := func(i int) float64 {
-		if equal {
-			return 1
-		}
-		return w[i]
-	}
-	if equal {
-		sum = float64(n)
-	}
 
 	var fracStack [smallApportion]float64
 	var frac []float64
@@ -276,9 +272,18 @@ func Apportion(total int64, w []float64, dst []int64) []int64 {
 		frac = make([]float64, n)
 	}
 	left := total
-	for i := range dst {
-		dst[i], frac[i] = quota(total, weight(i), sum)
-		left -= dst[i]
+	if equal {
+		q := float64(total) / float64(n)
+		for i := range dst {
+			dst[i], frac[i] = quota(q)
+			left -= dst[i]
+		}
+	} else {
+		scale := float64(total) / sum
+		for i, x := range w {
+			dst[i], frac[i] = quota(x * scale)
+			left -= dst[i]
+		}
 	}
 	if left == 0 {
 		return dst
@@ -292,18 +297,18 @@ func Apportion(total int64, w []float64, dst []int64) []int64 {
 		left -= int64(n)
 	}
 	if left > 0 && n <= smallApportion {
-		// Rank i = how many indices come before it in (remainder desc,
-		// index asc); the first left ranks get one unit each.
-		for i := range dst {
-			rank := 0
-			for j := range dst {
-				if frac[j] > frac[i] || (frac[j] == frac[i] && j < i) {
-					rank++
+		// Pick the largest remaining remainder left times; the strict
+		// comparison keeps the lowest index among equals.
+		var chosen uint64
+		for range left {
+			best := -1
+			for i, f := range frac {
+				if chosen&(1<<i) == 0 && (best < 0 || f > frac[best]) {
+					best = i
 				}
 			}
-			if int64(rank) < left {
-				dst[i]++
-			}
+			chosen |= 1 << best
+			dst[best]++
 		}
 		return dst
 	}

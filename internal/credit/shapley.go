@@ -30,31 +30,44 @@ func ShapleyValues(n int, v func(mask uint32) float64) []float64 {
 	return shapleyFromTable(n, table)
 }
 
-// shapleyFromTable computes Shapley values from v given for every mask.
+// shapleyFromTable computes Shapley values from v given for every mask. It
+// streams the table once, using the equivalent form
+//
+//	φ_i = Σ_{S∋i} w(|S|−1)·v(S) − Σ_{S∌i} w(|S|)·v(S),  w(s) = s!(n−s−1)!/n!
+//
+// and, to touch only the set bits of each mask, adds w(|S|−1)+w(|S|) for
+// members and subtracts Σ_S w(|S|)·v(S) from everyone once at the end.
 func shapleyFromTable(n int, v []float64) []float64 {
 	phi := make([]float64, n)
 	if n == 0 {
 		return phi
 	}
-	// weight[s] = s!(n−s−1)!/n! = 1/(n·C(n−1, s)); C(19, s) <= 92378 is
-	// exact in float64.
-	weight := make([]float64, n)
+	// weight[s] = s!(n−s−1)!/n! = 1/(n·C(n−1, s)) for s < n, 0 for s = n;
+	// C(19, s) <= 92378 is exact in float64.
+	weight := make([]float64, n+1)
 	binom := 1.0
 	for s := range n {
 		weight[s] = 1 / (float64(n) * binom)
 		binom = binom * float64(n-1-s) / float64(s+1)
 	}
-	for i := range n {
-		bit := 1 << i
-		low := bit - 1
-		var sum float64
-		// Enumerate the 2^(n−1) masks without bit i by spreading a counter
-		// around the zero at position i.
-		for k := range 1 << (n - 1) {
-			m := (k & low) | (k&^low)<<1
-			sum += weight[bits.OnesCount(uint(m))] * (v[m|bit] - v[m])
+	member := make([]float64, n+1) // w(s−1) + w(s) for |S| = s
+	for s := 1; s <= n; s++ {
+		member[s] = weight[s-1] + weight[s]
+	}
+	var outside float64
+	for m, val := range v {
+		if val == 0 {
+			continue
 		}
-		phi[i] = sum
+		c := bits.OnesCount(uint(m))
+		outside += weight[c] * val
+		add := member[c] * val
+		for b := uint(m); b != 0; b &= b - 1 {
+			phi[bits.TrailingZeros(b)] += add
+		}
+	}
+	for i := range phi {
+		phi[i] -= outside
 	}
 	return phi
 }

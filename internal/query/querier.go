@@ -18,6 +18,7 @@ var ErrNoData = errors.New("no data: nothing has been ingested into this data di
 // Querier answers queries from a consistent snapshot of a store.
 type Querier struct {
 	r       *state.Reader
+	s       *state.Store
 	res     []state.Resolution
 	maxSeen time.Time
 	p       Params
@@ -35,7 +36,7 @@ func NewQuerier(s *state.Store, p Params) (*Querier, error) {
 		r.Discard()
 		return nil, ErrNoData
 	}
-	return &Querier{r: r, res: s.Resolutions(), maxSeen: time.Unix(0, maxSeen).UTC(), p: p}, nil
+	return &Querier{r: r, s: s, res: s.Resolutions(), maxSeen: time.Unix(0, maxSeen).UTC(), p: p}, nil
 }
 
 // Close releases the snapshot.
@@ -55,13 +56,37 @@ type Span struct {
 const DefaultLast = 30 * 24 * time.Hour
 
 // Plan resolves a span to the buckets that answer it.
-func (q *Querier) Plan(s Span) (Plan, error) {
+func (q *Querier) Plan(s Span) (Plan, error) { return q.PlanFor(tally.Totals, s) }
+
+// PlanFor resolves a span for family f, using only the resolutions f is kept
+// at (path statistics start at hours).
+func (q *Querier) PlanFor(f tally.Family, s Span) (Plan, error) {
+	from, to, err := q.resolve(s)
+	if err != nil {
+		return Plan{}, err
+	}
+	idx := q.s.FamilyResolutions(f)
+	sub := make([]state.Resolution, len(idx))
+	for i, j := range idx {
+		sub[i] = q.res[j]
+	}
+	p, err := PlanWindow(sub, from, to, q.maxSeen)
+	if err != nil {
+		return Plan{}, err
+	}
+	for i := range p.Pieces {
+		p.Pieces[i].Res = idx[p.Pieces[i].Res]
+	}
+	return p, nil
+}
+
+func (q *Querier) resolve(s Span) (time.Time, time.Time, error) {
 	from, to := s.From, s.To
 	switch {
 	case s.Last < 0:
-		return Plan{}, fmt.Errorf("--last must be positive")
+		return from, to, fmt.Errorf("--last must be positive")
 	case s.Last > 0 && (!from.IsZero() || !to.IsZero()):
-		return Plan{}, fmt.Errorf("give either --last or --from/--to, not both")
+		return from, to, fmt.Errorf("give either --last or --from/--to, not both")
 	case s.Last > 0 || (from.IsZero() && to.IsZero()):
 		last := s.Last
 		if last == 0 {
@@ -70,11 +95,11 @@ func (q *Querier) Plan(s Span) (Plan, error) {
 		to = q.maxSeen.Add(time.Nanosecond)
 		from = to.Add(-last)
 	case from.IsZero():
-		return Plan{}, fmt.Errorf("--to needs --from")
+		return from, to, fmt.Errorf("--to needs --from")
 	case to.IsZero():
 		to = q.maxSeen.Add(time.Nanosecond)
 	}
-	return PlanWindow(q.res, from, to, q.maxSeen)
+	return from, to, nil
 }
 
 // Table sums family f over the plan.
@@ -114,7 +139,7 @@ func (q *Querier) dataCredit(model, by string, order int, s Span) (CreditAnswer,
 	if order < 1 || order > q.p.MarkovMaxOrder {
 		return CreditAnswer{}, fmt.Errorf("--order must be 1 to %d (markov_max_order), got %d", q.p.MarkovMaxOrder, order)
 	}
-	p, err := q.Plan(s)
+	p, err := q.PlanFor(tally.Coalitions, s)
 	if err != nil {
 		return CreditAnswer{}, err
 	}
@@ -147,7 +172,7 @@ func (q *Querier) Transitions(level string, order int, s Span) (TransitionsAnswe
 	default:
 		return TransitionsAnswer{}, fmt.Errorf("unknown level %q: use channel or action", level)
 	}
-	p, err := q.Plan(s)
+	p, err := q.PlanFor(f, s)
 	if err != nil {
 		return TransitionsAnswer{}, err
 	}
@@ -171,7 +196,7 @@ func (q *Querier) Paths(level string, top int, s Span) (PathsAnswer, error) {
 	if top < 1 {
 		return PathsAnswer{}, fmt.Errorf("--top must be at least 1")
 	}
-	p, err := q.Plan(s)
+	p, err := q.PlanFor(f, s)
 	if err != nil {
 		return PathsAnswer{}, err
 	}

@@ -37,7 +37,7 @@ func DefaultOptions(dir string) Options {
 	return Options{
 		Dir: dir,
 		Resolutions: []Resolution{
-			{"minute", time.Minute, 3 * 24 * time.Hour},
+			{"5m", 5 * time.Minute, 14 * 24 * time.Hour},
 			{"hour", time.Hour, 90 * 24 * time.Hour},
 			{"day", 24 * time.Hour, 0},
 		},
@@ -72,6 +72,10 @@ func (o Options) Validate() error {
 			}
 		}
 	}
+	last := o.Resolutions[len(o.Resolutions)-1].Step
+	if last < tally.PathStep*time.Second || last%(tally.PathStep*time.Second) != 0 {
+		return fmt.Errorf("state: the coarsest resolution must be a multiple of %v (path statistics are kept at that size)", tally.PathStep*time.Second)
+	}
 	if o.MemtableMiB < 8 || o.BlockCacheMiB < 1 || o.IndexCacheMiB < 1 {
 		return errors.New("state: memtable must be >= 8 MiB and caches >= 1 MiB")
 	}
@@ -82,6 +86,9 @@ func (o Options) Validate() error {
 type Store struct {
 	db  *badger.DB
 	opt Options
+
+	seq    uint64         // last commit sequence number (suffix of counter delta keys)
+	deltas map[blobID]int // delta keys per bucket written by this process since the last merge
 }
 
 // ErrLocked is returned by Open when another process holds the directory.
@@ -118,10 +125,20 @@ func Open(ctx context.Context, o Options) (*Store, error) {
 		}
 		return nil, fmt.Errorf("state: open %s: %w", o.Dir, err)
 	}
-	s := &Store{db: db, opt: o}
+	s := &Store{db: db, opt: o, deltas: make(map[blobID]int)}
 	if err := s.checkFormat(); err != nil {
 		db.Close()
 		return nil, err
+	}
+	r := s.NewReader()
+	defer r.Discard()
+	b, err := r.Meta(metaSeq)
+	if err != nil {
+		db.Close()
+		return nil, err
+	}
+	if len(b) == 8 {
+		s.seq = binary.BigEndian.Uint64(b)
 	}
 	return s, nil
 }
@@ -136,6 +153,18 @@ func (s *Store) Close() error { return s.db.Close() }
 
 // Resolutions returns the store's resolutions, finest first.
 func (s *Store) Resolutions() []Resolution { return s.opt.Resolutions }
+
+// FamilyResolutions returns the indices of the resolutions family f is kept
+// at (steps of at least tally.MinStep(f)), finest first.
+func (s *Store) FamilyResolutions(f tally.Family) []int {
+	var out []int
+	for i, r := range s.opt.Resolutions {
+		if int64(r.Step/time.Second) >= tally.MinStep(f) {
+			out = append(out, i)
+		}
+	}
+	return out
+}
 
 // Limits returns the largest commit Badger accepts: bytes and entries.
 func (s *Store) Limits() (bytes, entries int64) { return s.db.MaxBatchSize(), s.db.MaxBatchCount() }
@@ -190,15 +219,25 @@ func metaKey(name string) []byte { return append([]byte{prefixMeta}, name...) }
 func checkpointKey(source string) []byte { return append([]byte{prefixCheckpoint}, source...) }
 
 // counterKey is 'c' | resolution index | family | bucket start (Unix seconds,
-// big-endian with the sign bit flipped so keys sort by time).
-func counterKey(res int, f tally.Family, bucket int64) []byte {
-	k := make([]byte, 11)
+// big-endian with the sign bit flipped so keys sort by time) | commit
+// sequence number (big-endian). A bucket's value is the sum of its delta
+// keys.
+func counterKey(res int, f tally.Family, bucket int64, seq uint64) []byte {
+	k := make([]byte, 19)
 	k[0] = prefixCounter
 	k[1] = byte(res)
 	k[2] = byte(f)
 	binary.BigEndian.PutUint64(k[3:], uint64(bucket)^(1<<63))
+	binary.BigEndian.PutUint64(k[11:], seq)
 	return k
 }
+
+// metaSeq holds the last commit sequence number (8 bytes, big-endian).
+const metaSeq = "seq"
+
+// mergeAt is the number of delta keys a bucket may collect (from this
+// process's commits) before a commit merges them into one.
+const mergeAt = 8
 
 func bucketOfKey(k []byte) int64 { return int64(binary.BigEndian.Uint64(k[3:11]) ^ (1 << 63)) }
 
@@ -274,7 +313,10 @@ type blobID struct {
 	bucket int64
 }
 
-// mergeCounters adds the batch to the stored tables of every resolution.
+// mergeCounters writes the batch as one delta table per touched (resolution,
+// family, bucket), keyed with this commit's sequence number: no reads, no
+// rewriting of large tables. A bucket that collected mergeAt deltas is merged
+// into a single key in the same transaction, so reads stay bounded.
 func (s *Store) mergeCounters(txn *badger.Txn, b *tally.Batch, set func(k, v []byte) error) error {
 	groups := make(map[blobID]tally.Table)
 	steps := make([]int64, len(s.opt.Resolutions))
@@ -285,7 +327,11 @@ func (s *Store) mergeCounters(txn *badger.Txn, b *tally.Batch, set func(k, v []b
 		return fmt.Errorf("state: batch step %ds does not match the finest resolution %ds", b.Step(), steps[0])
 	}
 	b.Range(func(k tally.Key, v tally.Vec) {
+		min := tally.MinStep(k.Family)
 		for i, step := range steps {
+			if step < min {
+				continue
+			}
 			id := blobID{i, k.Family, tally.FloorDiv(k.Bucket, step) * step}
 			t := groups[id]
 			if t == nil {
@@ -295,22 +341,59 @@ func (s *Store) mergeCounters(txn *badger.Txn, b *tally.Batch, set func(k, v []b
 			t[k.Dims] = t[k.Dims].Add(v)
 		}
 	})
-	var buf []byte
+	s.seq++
+	seq := make([]byte, 8)
+	binary.BigEndian.PutUint64(seq, s.seq)
+	if err := set(metaKey(metaSeq), seq); err != nil {
+		return err
+	}
+	var (
+		buf  []byte
+		snap *badger.Txn // committed state before this commit, for merging
+	)
+	defer func() {
+		if snap != nil {
+			snap.Discard()
+		}
+	}()
 	for id, delta := range groups {
-		key := counterKey(id.res, id.fam, id.bucket)
-		item, err := txn.Get(key)
-		switch {
-		case errors.Is(err, badger.ErrKeyNotFound):
-		case err != nil:
-			return fmt.Errorf("state: read counters: %w", err)
-		default:
-			if err := item.Value(func(v []byte) error { return tally.DecodeTable(v, delta) }); err != nil {
-				return fmt.Errorf("state: counters at %d: %w", id.bucket, err)
+		if n := s.deltas[id] + 1; n >= mergeAt {
+			if snap == nil {
+				snap = s.db.NewTransaction(false)
 			}
+			if err := s.mergeBucket(snap, txn, id, delta); err != nil {
+				return err
+			}
+			delete(s.deltas, id)
+		} else {
+			s.deltas[id] = n
 		}
 		buf = tally.AppendTable(buf[:0], delta)
-		if err := set(key, append([]byte(nil), buf...)); err != nil {
+		if err := set(counterKey(id.res, id.fam, id.bucket, s.seq), append([]byte(nil), buf...)); err != nil {
 			return err
+		}
+	}
+	return nil
+}
+
+// mergeBucket adds every committed delta of a bucket (read from snap) into t
+// and deletes them in txn. Commits are serialised, so snap sees every delta.
+func (s *Store) mergeBucket(snap, txn *badger.Txn, id blobID, t tally.Table) error {
+	opts := badger.DefaultIteratorOptions
+	opts.Prefix = counterKey(id.res, id.fam, id.bucket, 0)[:11]
+	it := snap.NewIterator(opts)
+	defer it.Close()
+	var dead [][]byte
+	for it.Rewind(); it.Valid(); it.Next() {
+		if err := it.Item().Value(func(v []byte) error { return tally.DecodeTable(v, t) }); err != nil {
+			return fmt.Errorf("state: merge bucket %d: %w", id.bucket, err)
+		}
+		dead = append(dead, it.Item().KeyCopy(nil))
+	}
+	it.Close()
+	for _, k := range dead {
+		if err := txn.Delete(k); err != nil {
+			return fmt.Errorf("state: merge bucket: %w", err)
 		}
 	}
 	return nil
@@ -359,19 +442,32 @@ func (r *Reader) Buckets(res int, f tally.Family, from, to int64, fn func(bucket
 	opts.Prefix = prefix
 	it := r.txn.NewIterator(opts)
 	defer it.Close()
-	end := counterKey(res, f, to)
-	for it.Seek(counterKey(res, f, from)); it.ValidForPrefix(prefix); it.Next() {
+	end := counterKey(res, f, to, 0)
+	var (
+		cur int64
+		t   tally.Table
+	)
+	for it.Seek(counterKey(res, f, from, 0)); it.ValidForPrefix(prefix); it.Next() {
 		k := it.Item().Key()
 		if string(k) >= string(end) {
 			break
 		}
-		t := make(tally.Table)
+		b := bucketOfKey(k)
+		if t != nil && b != cur {
+			if err := fn(cur, t); err != nil {
+				return err
+			}
+			t = nil
+		}
+		if t == nil {
+			t, cur = make(tally.Table), b
+		}
 		if err := it.Item().Value(func(v []byte) error { return tally.DecodeTable(v, t) }); err != nil {
-			return fmt.Errorf("state: bucket %d: %w", bucketOfKey(k), err)
+			return fmt.Errorf("state: bucket %d: %w", b, err)
 		}
-		if err := fn(bucketOfKey(k), t); err != nil {
-			return err
-		}
+	}
+	if t != nil {
+		return fn(cur, t)
 	}
 	return nil
 }

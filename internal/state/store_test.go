@@ -20,7 +20,7 @@ func TestCommitFansOutToResolutions(t *testing.T) {
 	defer s.Close()
 	base := time.Date(2026, 10, 1, 0, 0, 0, 0, time.UTC)
 	for round := 0; round < 2; round++ {
-		b := tally.NewBatch(60)
+		b := tally.NewBatch(300)
 		for i := 0; i < 48; i++ {
 			b.Add(tally.Credit, base.Add(time.Duration(i)*37*time.Minute).UnixNano(), tally.Join("linear", "mail", ""), tally.Vec{1, 10, 0})
 		}
@@ -58,7 +58,7 @@ func TestOtherResolutionsRefused(t *testing.T) {
 	}
 	s.Close()
 	o := DefaultOptions(dir)
-	o.Resolutions[0].Step = 5 * time.Minute
+	o.Resolutions[0].Step = time.Minute
 	if s, err := Open(context.Background(), o); err == nil {
 		s.Close()
 		t.Fatal("opened with other resolutions")

@@ -16,16 +16,23 @@ var ErrCorrupt = errors.New("tally: corrupt table encoding")
 //
 //	version byte (1) | uvarint n | n × (uvarint len(dims) | dims | 3 × varint slot)
 //
-// Entries are sorted by dims and zero entries are left out, so equal tables
-// encode to equal bytes.
+// Entries are in no particular order; zero entries are left out.
 func AppendTable(dst []byte, t Table) []byte {
-	es := t.Sorted()
+	n := 0
+	for _, v := range t {
+		if !v.IsZero() {
+			n++
+		}
+	}
 	dst = append(dst, tableVersion)
-	dst = binary.AppendUvarint(dst, uint64(len(es)))
-	for _, e := range es {
-		dst = binary.AppendUvarint(dst, uint64(len(e.Dims)))
-		dst = append(dst, e.Dims...)
-		for _, x := range e.Vec {
+	dst = binary.AppendUvarint(dst, uint64(n))
+	for d, v := range t {
+		if v.IsZero() {
+			continue
+		}
+		dst = binary.AppendUvarint(dst, uint64(len(d)))
+		dst = append(dst, d...)
+		for _, x := range v {
 			dst = binary.AppendVarint(dst, x)
 		}
 	}

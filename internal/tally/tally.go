@@ -48,6 +48,22 @@ const (
 	JourneyPaths Family = 9
 )
 
+// PathStep is the smallest bucket (seconds) of the path families: journeys
+// and sessions are counted at hour resolution and coarser, which keeps the
+// number of counters small (a growing session moves within its hour as one
+// net change).
+const PathStep = 3600
+
+// MinStep returns the smallest bucket length (seconds) a family is kept at;
+// 0 means the finest resolution.
+func MinStep(f Family) int64 {
+	switch f {
+	case ChannelTransitions, Coalitions, ActionTransitions, SessionPaths, JourneyPaths:
+		return PathStep
+	}
+	return 0
+}
+
 // Families lists every family, in storage order.
 var Families = []Family{Totals, Credit, Activity, ChannelTransitions, Coalitions,
 	ActionTransitions, Funnel, SessionPaths, JourneyPaths}
@@ -100,14 +116,16 @@ func NewBatch(stepSeconds int64) *Batch {
 // Step returns the bucket length in seconds.
 func (b *Batch) Step() int64 { return b.step }
 
-// BucketOf returns the start (Unix seconds) of the bucket holding unixNano.
-func (b *Batch) BucketOf(unixNano int64) int64 {
-	return FloorDiv(unixNano, b.step*1e9) * b.step
+// BucketOf returns the start (Unix seconds) of family f's bucket holding
+// unixNano: the finest step, or MinStep(f) if that is coarser.
+func (b *Batch) BucketOf(f Family, unixNano int64) int64 {
+	step := max(b.step, MinStep(f))
+	return FloorDiv(unixNano, step*1e9) * step
 }
 
 // Add adds v to the counter (f, bucket of unixNano, dims).
 func (b *Batch) Add(f Family, unixNano int64, dims string, v Vec) {
-	k := Key{f, b.BucketOf(unixNano), dims}
+	k := Key{f, b.BucketOf(f, unixNano), dims}
 	b.m[k] = b.m[k].Add(v)
 }
 
