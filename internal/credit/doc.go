@@ -62,16 +62,17 @@
 //
 // Solving. Only states reachable from START that can reach CONVERSION take
 // part (every other state converts with probability 0, removal or not).
-// Chains of up to 160 such states (order 1 always) are solved with gonum's
-// dense LU decomposition, one system per removal. Larger chains (an order-3
+// Chains of up to 160 such states (order 1 up to 159 channels) are solved
+// with gonum's dense LU decomposition, one system per removal. Larger chains (an order-3
 // chain over 20 channels has ~7000 states, where one dense LU would take
 // minutes) use Gauss–Seidel sweeps over the sparse rows: the full chain
 // first, then the removal systems side by side, started from the full
 // solution and spread over up to GOMAXPROCS goroutines; Aitken extrapolation
 // removes the slowest error mode once its rate holds steady. The stopping
 // rule bounds the estimated error of P_−c at 1e-10·P; measured errors are
-// about 1e-12. Tests check both solvers against each other and against
-// repeated squaring of the full transition matrix.
+// about 1e-12, and removal effects below 1e-9 are reported as 0. Tests check
+// both solvers against each other and against repeated squaring of the full
+// transition matrix.
 //
 // # Shapley value (over a window's channel-set counts)
 //

@@ -74,7 +74,9 @@ func shapleyFromTable(n int, v []float64) []float64 {
 
 // Coalition is the aggregate of the journeys that touched exactly one set of
 // channels: how many there were, how many converted and the conversions'
-// value. Counts of several time buckets or partitions add.
+// value (in the caller's units). Counts of several time buckets or
+// partitions add. Shapley only validates Value (>= 0); the caller applies
+// the shares to the window's value.
 type Coalition struct {
 	Channels              []string // sorted, distinct
 	Journeys, Conversions int64
@@ -160,9 +162,8 @@ func Shapley(coalitions []Coalition, limit int, other string) (ShapleyResult, er
 	for i, p := range players {
 		player[p] = i
 	}
-	otherBit := -1
 	if len(players) < len(seen) {
-		otherBit = player[other]
+		otherBit := player[other]
 		for _, ch := range seen {
 			if _, ok := player[ch]; !ok {
 				player[ch] = otherBit

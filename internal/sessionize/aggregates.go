@@ -94,29 +94,66 @@ func (t *Tracker) sessionAgg(b *tally.Batch, u *UserState, sign int64) {
 		prev = a
 	}
 	b.Add(tally.ActionTransitions, at, prev+tally.Sep+ActionEnd, tally.Vec{sign, 0, 0})
-	cart, converted := false, false
-	for _, a := range u.Path {
+	depth, v := t.funnelOf(u.Path)
+	b.Add(tally.Funnel, at, t.depths[depth], tally.Vec{sign * v[0], sign * v[1], sign * v[2]})
+	b.Add(tally.SessionPaths, at, pathstats.PathKey(u.Path, t.p.PathMaxLen), tally.Vec{sign, sign * t.converted(u.Path), 0})
+}
+
+// funnelOf returns a session's funnel depth and its Funnel vector
+// {1, reached the cart step, reached it and converted}.
+func (t *Tracker) funnelOf(path []string) (int, tally.Vec) {
+	cart := false
+	for _, a := range path {
 		if a == t.p.CartStep {
 			cart = true
-		}
-		if t.conv[a] {
-			converted = true
+			break
 		}
 	}
-	v := tally.Vec{sign, 0, 0}
+	v := tally.Vec{1, 0, 0}
 	if cart {
-		v[1] = sign
-		if converted {
-			v[2] = sign
+		v[1] = 1
+		v[2] = t.converted(path)
+	}
+	return pathstats.FunnelDepth(path, t.p.FunnelSteps), v
+}
+
+// converted returns 1 if the path holds a conversion action, else 0.
+func (t *Tracker) converted(path []string) int64 {
+	for _, a := range path {
+		if t.conv[a] {
+			return 1
 		}
 	}
-	depth := pathstats.FunnelDepth(u.Path, t.p.FunnelSteps)
-	b.Add(tally.Funnel, at, t.depths[depth], v)
-	c := int64(0)
-	if converted {
-		c = sign
+	return 0
+}
+
+// sessionStep appends action a (at now) to u's session, whose last action
+// was at last, and adds the change in its aggregates. The caller has checked
+// that both times fall in the same path bucket and that the path has room.
+// It equals sessionAgg(−1) before plus sessionAgg(+1) after, with unchanged
+// counters left out (the common case: actions minutes apart).
+func (t *Tracker) sessionStep(b *tally.Batch, u *UserState, a string, last, now int64) {
+	prev := u.Path[len(u.Path)-1]
+	b.Add(tally.ActionTransitions, now, prev+tally.Sep+ActionEnd, tally.Vec{-1, 0, 0})
+	b.Add(tally.ActionTransitions, now, prev+tally.Sep+a, tally.Vec{1, 0, 0})
+	b.Add(tally.ActionTransitions, now, a+tally.Sep+ActionEnd, tally.Vec{1, 0, 0})
+
+	oldPath := u.Path
+	oldDepth, oldV := t.funnelOf(oldPath)
+	oldConv := t.converted(oldPath)
+	u.Path = append(u.Path, a)
+	newDepth, newV := t.funnelOf(u.Path)
+	if oldDepth != newDepth || oldV != newV || b.BucketOf(tally.Funnel, last) != b.BucketOf(tally.Funnel, now) {
+		b.Add(tally.Funnel, last, t.depths[oldDepth], tally.Vec{}.Sub(oldV))
+		b.Add(tally.Funnel, now, t.depths[newDepth], newV)
 	}
-	b.Add(tally.SessionPaths, at, pathstats.PathKey(u.Path, t.p.PathMaxLen), tally.Vec{sign, c, 0})
+	newConv := t.converted(u.Path)
+	if a != prev { // a repeat leaves the collapsed path key unchanged
+		b.Add(tally.SessionPaths, now, pathstats.PathKey(oldPath, t.p.PathMaxLen), tally.Vec{-1, -oldConv, 0})
+		b.Add(tally.SessionPaths, now, pathstats.PathKey(u.Path, t.p.PathMaxLen), tally.Vec{1, newConv, 0})
+	} else if newConv != oldConv {
+		b.Add(tally.SessionPaths, now, pathstats.PathKey(u.Path, t.p.PathMaxLen), tally.Vec{0, newConv - oldConv, 0})
+	}
 }
 
 func (t *Tracker) initAggregates() {
@@ -129,3 +166,4 @@ func (t *Tracker) initAggregates() {
 		t.depths[d] = strconv.Itoa(d)
 	}
 }
+

@@ -3,6 +3,7 @@ package sessionize_test
 import (
 	"bufio"
 	"bytes"
+	"fmt"
 	"testing"
 	"time"
 
@@ -23,6 +24,8 @@ func defaultParams() sessionize.Params {
 		JourneyTimeout: 30 * day, DedupHorizon: 7 * day, Conversions: []string{"purchase"},
 		Credit:  credit.Params{HalfLife: 7 * day, First: 0.4, Middle: 0.2, Last: 0.4, Direct: "direct"},
 		MaxPath: 64, MaxTouches: 100,
+		PathStats: true, FunnelSteps: []string{"view_item", "add_to_cart", "checkout", "purchase"},
+		CartStep: "add_to_cart", MarkovMaxOrder: 3, CollapseRepeats: true, PathMaxLen: 8,
 	}
 }
 
@@ -30,6 +33,12 @@ func defaultParams() sessionize.Params {
 // rule-based models over pre-decoded demo events (fixed seed), one core.
 // Target (issue 2): >= 2 M events/s.
 func BenchmarkPipeline(b *testing.B) {
+	for _, paths := range []bool{false, true} {
+		b.Run(fmt.Sprintf("pathstats=%v", paths), func(b *testing.B) { benchPipeline(b, paths) })
+	}
+}
+
+func benchPipeline(b *testing.B, paths bool) {
 	c := shop.DefaultConfig()
 	c.Visitors = 40000
 	var buf bytes.Buffer
@@ -48,7 +57,9 @@ func BenchmarkPipeline(b *testing.B) {
 		evs = append(evs, e)
 		hashes = append(hashes, xxhash.Sum64String(e.ID))
 	}
-	tr, err := sessionize.NewTracker(defaultParams())
+	p := defaultParams()
+	p.PathStats = paths
+	tr, err := sessionize.NewTracker(p)
 	if err != nil {
 		b.Fatal(err)
 	}

@@ -162,6 +162,17 @@ func (t *Tracker) action(u *UserState, e *event.Event, now int64, b *tally.Batch
 		b.Add(tally.Activity, now, "", tally.Vec{1, 1, 0})
 	} else {
 		b.Add(tally.Activity, now, "", tally.Vec{0, 1, 0})
+		if t.p.PathStats && len(u.Path) > 0 && len(u.Path) < t.p.MaxPath &&
+			b.BucketOf(tally.SessionPaths, u.LastAction) == b.BucketOf(tally.SessionPaths, now) {
+			last := u.LastAction
+			u.LastAction = now
+			u.PathLen++
+			t.sessionStep(b, u, e.Action, last, now)
+			if t.conv[e.Action] {
+				t.convert(u, e, now, b)
+			}
+			return
+		}
 		t.sessionAgg(b, u, -1)
 	}
 	u.LastAction = now

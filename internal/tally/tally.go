@@ -102,7 +102,8 @@ type Key struct {
 // It is not safe for concurrent use.
 type Batch struct {
 	step int64 // finest bucket length in seconds
-	m    map[Key]Vec
+	m    map[Key]int32
+	vals []Vec
 }
 
 // NewBatch returns an empty batch whose buckets are stepSeconds long.
@@ -110,7 +111,7 @@ func NewBatch(stepSeconds int64) *Batch {
 	if stepSeconds <= 0 {
 		panic("tally: bucket step must be positive")
 	}
-	return &Batch{step: stepSeconds, m: make(map[Key]Vec)}
+	return &Batch{step: stepSeconds, m: make(map[Key]int32)}
 }
 
 // Step returns the bucket length in seconds.
@@ -125,14 +126,21 @@ func (b *Batch) BucketOf(f Family, unixNano int64) int64 {
 
 // Add adds v to the counter (f, bucket of unixNano, dims).
 func (b *Batch) Add(f Family, unixNano int64, dims string, v Vec) {
-	k := Key{f, b.BucketOf(f, unixNano), dims}
-	b.m[k] = b.m[k].Add(v)
+	b.AddBucket(f, b.BucketOf(f, unixNano), dims, v)
 }
 
 // AddBucket adds v to the counter at an explicit bucket start.
 func (b *Batch) AddBucket(f Family, bucket int64, dims string, v Vec) {
 	k := Key{f, bucket, dims}
-	b.m[k] = b.m[k].Add(v)
+	if i, ok := b.m[k]; ok {
+		p := &b.vals[i]
+		p[0] += v[0]
+		p[1] += v[1]
+		p[2] += v[2]
+		return
+	}
+	b.m[k] = int32(len(b.vals))
+	b.vals = append(b.vals, v)
 }
 
 // Len returns the number of distinct counters touched.
@@ -140,18 +148,26 @@ func (b *Batch) Len() int { return len(b.m) }
 
 // Range calls fn for every non-zero counter, in no particular order.
 func (b *Batch) Range(fn func(Key, Vec)) {
-	for k, v := range b.m {
-		if !v.IsZero() {
+	for k, i := range b.m {
+		if v := b.vals[i]; !v.IsZero() {
 			fn(k, v)
 		}
 	}
 }
 
 // Get returns the counter's value in this batch.
-func (b *Batch) Get(f Family, bucket int64, dims string) Vec { return b.m[Key{f, bucket, dims}] }
+func (b *Batch) Get(f Family, bucket int64, dims string) Vec {
+	if i, ok := b.m[Key{f, bucket, dims}]; ok {
+		return b.vals[i]
+	}
+	return Vec{}
+}
 
 // Reset empties the batch, keeping its step.
-func (b *Batch) Reset() { b.m = make(map[Key]Vec, len(b.m)) }
+func (b *Batch) Reset() {
+	b.m = make(map[Key]int32, len(b.m))
+	b.vals = b.vals[:0]
+}
 
 // FloorDiv is integer division rounding towards negative infinity.
 func FloorDiv(a, b int64) int64 {
