@@ -29,12 +29,9 @@ func FromConfig(c config.Config) Config {
 			},
 			MaxPath:         64,
 			MaxTouches:      100,
-			PathStats:       true,
-			FunnelSteps:     c.FunnelSteps,
-			CartStep:        c.CartStep,
-			MarkovMaxOrder:  c.MarkovMaxOrder,
-			CollapseRepeats: c.CollapseRepeats,
-			PathMaxLen:      c.PathMaxLen,
+			PathStats:   true,
+			FunnelSteps: c.FunnelSteps,
+			CartStep:    c.CartStep,
 		},
 		Lateness:       c.Lateness.D(),
 		Currency:       c.Currency,
@@ -62,8 +59,10 @@ func StoreOptions(dir string, c config.Config) state.Options {
 func QueryParams(c config.Config) query.Params {
 	step := c.Alert.Interval.D()
 	return query.Params{
-		Direct:         c.DirectChannel,
-		MarkovMaxOrder: c.MarkovMaxOrder,
+		Direct:          c.DirectChannel,
+		MarkovMaxOrder:  c.MarkovMaxOrder,
+		CollapseRepeats: c.CollapseRepeats,
+		PathMaxLen:      c.PathMaxLen,
 		ShapleyCap:     c.ShapleyCap,
 		FunnelSteps:    c.FunnelSteps,
 		CartStep:       c.CartStep,

@@ -3,6 +3,7 @@ package query
 import (
 	"errors"
 	"fmt"
+	"slices"
 	"sort"
 	"strconv"
 	"strings"
@@ -11,20 +12,22 @@ import (
 	"github.com/touchledger/touchledger/internal/alert"
 	"github.com/touchledger/touchledger/internal/credit"
 	"github.com/touchledger/touchledger/internal/event"
-	"github.com/touchledger/touchledger/internal/sessionize"
+	"github.com/touchledger/touchledger/internal/pathstats"
 	"github.com/touchledger/touchledger/internal/tally"
 )
 
 // Params are the query-time settings of the data-driven models, paths,
 // funnel and alerts (from the configuration file).
 type Params struct {
-	Direct         string
-	MarkovMaxOrder int
-	ShapleyCap     int
-	FunnelSteps    []string
-	CartStep       string
-	AlertInterval  time.Duration
-	Alert          alert.Params // Baseline in intervals
+	Direct          string
+	MarkovMaxOrder  int
+	CollapseRepeats bool // Markov paths collapse consecutive repeats of a channel
+	PathMaxLen      int  // path keys show at most this many steps
+	ShapleyCap      int
+	FunnelSteps     []string
+	CartStep        string
+	AlertInterval   time.Duration
+	Alert           alert.Params // Baseline in intervals
 }
 
 // Data-driven model names.
@@ -36,11 +39,11 @@ const (
 // IsDataDriven reports whether model is computed from journey aggregates.
 func IsDataDriven(model string) bool { return model == ModelMarkov || model == ModelShapley }
 
-// journeySplit returns the conversions and value of journeys that have a
-// channel path, and of conversions without an eligible touch (credited to
-// the direct channel in full).
-func journeySplit(coal tally.Table) (withPath tally.Vec, noPath tally.Vec) {
-	for dims, v := range coal {
+// journeySplit returns the journeys, conversions and value of journeys that
+// have a channel path, and of conversions without an eligible touch
+// (credited to the direct channel in full).
+func journeySplit(paths tally.Table) (withPath tally.Vec, noPath tally.Vec) {
+	for dims, v := range paths {
 		if dims == "" {
 			noPath = noPath.Add(v)
 		} else {
@@ -50,8 +53,70 @@ func journeySplit(coal tally.Table) (withPath tally.Vec, noPath tally.Vec) {
 	return withPath, noPath
 }
 
+// Coalitions derives the channel-set counts of the Shapley model from
+// journey paths: each path's distinct channels, sorted.
+func Coalitions(paths tally.Table) []credit.Coalition {
+	sets := map[string]tally.Vec{}
+	for dims, v := range paths {
+		if dims == "" || v.IsZero() {
+			continue
+		}
+		chans := tally.Split(dims)
+		sort.Strings(chans)
+		chans = slices.Compact(chans)
+		k := strings.Join(chans, tally.Sep)
+		sets[k] = sets[k].Add(v)
+	}
+	out := make([]credit.Coalition, 0, len(sets))
+	for k, v := range sets {
+		out = append(out, credit.Coalition{Channels: tally.Split(k), Journeys: v[0], Conversions: v[1], Value: v[2]})
+	}
+	sort.Slice(out, func(i, j int) bool { return strings.Join(out[i].Channels, ",") < strings.Join(out[j].Channels, ",") })
+	return out
+}
+
+// MarkovCounts derives the order-k transition counts from journey paths:
+// each path of n journeys with c conversions contributes n × its states'
+// transitions, c × (last state → CONVERSION) and (n − c) × (last state →
+// NULL). Paths (the empty one excepted) are START-prefixed as in
+// credit.PathTransitions.
+func MarkovCounts(paths tally.Table, k int, collapse bool) []credit.TransitionCount {
+	counts := map[credit.Transition]int64{}
+	var buf []credit.Transition
+	for dims, v := range paths {
+		if dims == "" || v[0] == 0 {
+			continue
+		}
+		chans := tally.Split(dims)
+		buf = credit.PathTransitions(buf[:0], chans, k, true, collapse)
+		last := buf[len(buf)-1].From
+		for _, tr := range buf[:len(buf)-1] {
+			counts[tr] += v[0]
+		}
+		if v[1] != 0 {
+			counts[credit.Transition{From: last, To: credit.StateConversion}] += v[1]
+		}
+		if n := v[0] - v[1]; n != 0 {
+			counts[credit.Transition{From: last, To: credit.StateNull}] += n
+		}
+	}
+	out := make([]credit.TransitionCount, 0, len(counts))
+	for tr, n := range counts {
+		if n != 0 {
+			out = append(out, credit.TransitionCount{From: tr.From, To: tr.To, Count: n})
+		}
+	}
+	sort.Slice(out, func(i, j int) bool {
+		if out[i].From != out[j].From {
+			return out[i].From < out[j].From
+		}
+		return out[i].To < out[j].To
+	})
+	return out
+}
+
 // DataDrivenCredit builds the credit answer of the Markov or Shapley model
-// from a window's Totals, ChannelTransitions and Coalitions tables.
+// from a window's Totals and JourneyPaths tables.
 //
 // credit(c) = share(c) × conversions with a path (and × their value); the
 // direct channel also gets every conversion that had no eligible touch.
@@ -59,19 +124,19 @@ func journeySplit(coal tally.Table) (withPath tally.Vec, noPath tally.Vec) {
 // 2016); Shapley shares are Shapley values (Shapley 1953) of the
 // conversion-rate value function normalised over channels, and may be
 // negative.
-func DataDrivenCredit(model string, order int, plan Plan, p Params, totals, trans, coal tally.Table) (CreditAnswer, error) {
+func DataDrivenCredit(model string, order int, plan Plan, p Params, totals, paths tally.Table) (CreditAnswer, error) {
 	a := CreditAnswer{Model: model, From: FormatTime(plan.From), To: FormatTime(plan.To), Rounded: plan.Rounded, By: ByChannel}
 	tot := totals[""]
 	a.Conversions = tot[0]
 	a.Value = float64(tot[1]) / event.ValueScale
-	withPath, noPath := journeySplit(coal)
+	withPath, noPath := journeySplit(paths)
 	var channels []string
 	var shares []float64
 	var journeys []int64
 	switch model {
 	case ModelMarkov:
 		a.Model = fmt.Sprintf("markov (order %d)", order)
-		counts := TransitionCounts(trans, order)
+		counts := MarkovCounts(paths, order, p.CollapseRepeats)
 		if len(counts) > 0 {
 			r, err := credit.Markov(counts)
 			switch {
@@ -87,14 +152,7 @@ func DataDrivenCredit(model string, order int, plan Plan, p Params, totals, tran
 			}
 		}
 	case ModelShapley:
-		var cs []credit.Coalition
-		for dims, v := range coal {
-			if dims == "" || (v[0] == 0 && v[1] == 0) {
-				continue
-			}
-			cs = append(cs, credit.Coalition{Channels: tally.Split(dims), Journeys: v[0], Conversions: v[1], Value: v[2]})
-		}
-		sort.Slice(cs, func(i, j int) bool { return strings.Join(cs[i].Channels, ",") < strings.Join(cs[j].Channels, ",") })
+		cs := Coalitions(paths)
 		if len(cs) > 0 {
 			r, err := credit.Shapley(cs, p.ShapleyCap, "other")
 			switch {
@@ -158,29 +216,6 @@ func DataDrivenCredit(model string, order int, plan Plan, p Params, totals, tran
 	return a, nil
 }
 
-// TransitionCounts extracts the channel transitions of one order.
-func TransitionCounts(trans tally.Table, order int) []credit.TransitionCount {
-	prefix := strconv.Itoa(order) + sessionize.RS
-	var out []credit.TransitionCount
-	for dims, v := range trans {
-		if !strings.HasPrefix(dims, prefix) || v[0] == 0 {
-			continue
-		}
-		parts := strings.SplitN(dims[len(prefix):], sessionize.RS, 2)
-		if len(parts) != 2 {
-			continue
-		}
-		out = append(out, credit.TransitionCount{From: parts[0], To: parts[1], Count: v[0]})
-	}
-	sort.Slice(out, func(i, j int) bool {
-		if out[i].From != out[j].From {
-			return out[i].From < out[j].From
-		}
-		return out[i].To < out[j].To
-	})
-	return out
-}
-
 // TransitionsAnswer is the answer of `query transitions`.
 type TransitionsAnswer struct {
 	Level       string       `json:"level"`
@@ -211,24 +246,45 @@ func stateLabel(s string) string {
 	return strings.Join(credit.StateChannels(s), ">")
 }
 
-// Transitions builds a transition matrix with row probabilities p(a,b) =
-// c(a,b) / Σ_b' c(a,b').
-func Transitions(level string, order int, plan Plan, t tally.Table) TransitionsAnswer {
+// ActionCounts derives within-session action transitions from session
+// paths: START → a1 → … → an → END, every consecutive pair, repeats kept.
+func ActionCounts(paths tally.Table) map[[2]string]int64 {
+	counts := map[[2]string]int64{}
+	for dims, v := range paths {
+		if dims == "" || v[0] == 0 {
+			continue
+		}
+		prev := ActionStart
+		for _, a := range tally.Split(dims) {
+			counts[[2]string{prev, a}] += v[0]
+			prev = a
+		}
+		counts[[2]string{prev, ActionEnd}] += v[0]
+	}
+	return counts
+}
+
+// Session path markers in action transitions.
+const (
+	ActionStart = "START"
+	ActionEnd   = "END"
+)
+
+// Transitions builds a transition matrix from journey paths (level channel,
+// Markov order k, as the Markov model sees them) or session paths (level
+// action), with row probabilities p(a,b) = c(a,b) / Σ_b' c(a,b').
+func Transitions(level string, order int, collapse bool, plan Plan, paths tally.Table) TransitionsAnswer {
 	a := TransitionsAnswer{Level: level, From: FormatTime(plan.From), To: FormatTime(plan.To)}
 	var rows []Transition
 	if level == "channel" {
 		a.Order = order
-		for _, c := range TransitionCounts(t, order) {
+		for _, c := range MarkovCounts(paths, order, collapse) {
 			rows = append(rows, Transition{From: stateLabel(c.From), To: stateLabel(c.To), Count: c.Count})
 		}
 	} else {
-		for dims, v := range t {
-			if v[0] == 0 {
-				continue
-			}
-			p := strings.SplitN(dims, tally.Sep, 2)
-			if len(p) == 2 {
-				rows = append(rows, Transition{From: p[0], To: p[1], Count: v[0]})
+		for k, n := range ActionCounts(paths) {
+			if n != 0 {
+				rows = append(rows, Transition{From: k[0], To: k[1], Count: n})
 			}
 		}
 	}
@@ -289,28 +345,44 @@ type PathStat struct {
 }
 
 // Paths lists the top most frequent paths (exact counts). Action paths are
-// whole sessions; channel paths are journeys ending in conversion or null
-// (for a channel path the conversion rate is 1 or 0 by construction).
-func Paths(level string, top int, plan Plan, t tally.Table) PathsAnswer {
+// whole sessions with repeats collapsed; channel paths are journeys ending in
+// conversion or null (for a channel path the conversion rate is 1 or 0 by
+// construction). Paths longer than maxLen are shown cut with an ellipsis.
+func Paths(level string, top, maxLen int, plan Plan, t tally.Table) PathsAnswer {
 	a := PathsAnswer{Level: level, From: FormatTime(plan.From), To: FormatTime(plan.To)}
-	var rows []PathStat
+	type agg struct{ n, conv int64 }
+	keys := map[string]*agg{}
+	add := func(k string, n, c int64) {
+		g := keys[k]
+		if g == nil {
+			g = &agg{}
+			keys[k] = g
+		}
+		g.n += n
+		g.conv += c
+	}
 	for dims, v := range t {
-		if v[0] == 0 {
+		if v[0] == 0 || dims == "" {
 			continue
 		}
-		path := dims
+		key := pathstats.PathKey(tally.Split(dims), maxLen)
 		if level == "channel" {
-			p := strings.SplitN(dims, tally.Sep, 2)
-			if len(p) == 2 {
-				end := "NULL"
-				if p[1] == sessionize.EndConversion {
-					end = "CONVERSION"
-				}
-				path = p[0] + " > " + end
+			if v[1] != 0 {
+				add(key+" > CONVERSION", v[1], v[1])
 			}
+			if n := v[0] - v[1]; n != 0 {
+				add(key+" > NULL", n, 0)
+			}
+		} else {
+			add(key, v[0], v[1])
 		}
-		rows = append(rows, PathStat{Path: path, Count: v[0], Conversions: v[1]})
 		a.Total += v[0]
+	}
+	var rows []PathStat
+	for k, g := range keys {
+		if g.n != 0 {
+			rows = append(rows, PathStat{Path: k, Count: g.n, Conversions: g.conv})
+		}
 	}
 	sort.Slice(rows, func(i, j int) bool {
 		if rows[i].Count != rows[j].Count {

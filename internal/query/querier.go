@@ -139,30 +139,28 @@ func (q *Querier) dataCredit(model, by string, order int, s Span) (CreditAnswer,
 	if order < 1 || order > q.p.MarkovMaxOrder {
 		return CreditAnswer{}, fmt.Errorf("--order must be 1 to %d (markov_max_order), got %d", q.p.MarkovMaxOrder, order)
 	}
-	p, err := q.PlanFor(tally.Coalitions, s)
+	p, err := q.PlanFor(tally.JourneyPaths, s)
 	if err != nil {
 		return CreditAnswer{}, err
 	}
-	var tabs [3]tally.Table
-	for i, f := range []tally.Family{tally.Totals, tally.ChannelTransitions, tally.Coalitions} {
-		if model == ModelShapley && f == tally.ChannelTransitions {
-			tabs[i] = tally.Table{}
-			continue
-		}
-		if tabs[i], err = q.Table(p, f); err != nil {
-			return CreditAnswer{}, err
-		}
+	totals, err := q.Table(p, tally.Totals)
+	if err != nil {
+		return CreditAnswer{}, err
 	}
-	return DataDrivenCredit(model, order, p, q.p, tabs[0], tabs[1], tabs[2])
+	paths, err := q.Table(p, tally.JourneyPaths)
+	if err != nil {
+		return CreditAnswer{}, err
+	}
+	return DataDrivenCredit(model, order, p, q.p, totals, paths)
 }
 
 // Transitions answers `query transitions`; level is "channel" or "action".
 func (q *Querier) Transitions(level string, order int, s Span) (TransitionsAnswer, error) {
-	f := tally.ActionTransitions
+	f := tally.SessionPaths
 	switch level {
 	case "action":
 	case "channel":
-		f = tally.ChannelTransitions
+		f = tally.JourneyPaths
 		if order == 0 {
 			order = 1
 		}
@@ -180,7 +178,7 @@ func (q *Querier) Transitions(level string, order int, s Span) (TransitionsAnswe
 	if err != nil {
 		return TransitionsAnswer{}, err
 	}
-	return Transitions(level, order, p, t), nil
+	return Transitions(level, order, q.p.CollapseRepeats, p, t), nil
 }
 
 // Paths answers `query paths`.
@@ -204,7 +202,7 @@ func (q *Querier) Paths(level string, top int, s Span) (PathsAnswer, error) {
 	if err != nil {
 		return PathsAnswer{}, err
 	}
-	return Paths(level, top, p, t), nil
+	return Paths(level, top, q.p.PathMaxLen, p, t), nil
 }
 
 // Funnel answers `query funnel`.

@@ -25,7 +25,7 @@ func defaultParams() sessionize.Params {
 		Credit:  credit.Params{HalfLife: 7 * day, First: 0.4, Middle: 0.2, Last: 0.4, Direct: "direct"},
 		MaxPath: 64, MaxTouches: 100,
 		PathStats: true, FunnelSteps: []string{"view_item", "add_to_cart", "checkout", "purchase"},
-		CartStep: "add_to_cart", MarkovMaxOrder: 3, CollapseRepeats: true, PathMaxLen: 8,
+		CartStep: "add_to_cart",
 	}
 }
 

@@ -26,12 +26,9 @@ type Params struct {
 	MaxTouches     int           // touches of an open journey kept in state (the oldest are dropped)
 
 	// Path statistics (see aggregates.go). PathStats false skips them.
-	PathStats       bool
-	FunnelSteps     []string // ordered funnel steps (closed funnel)
-	CartStep        string   // sessions reaching it count towards cart abandonment
-	MarkovMaxOrder  int      // channel transitions are kept for orders 1..this
-	CollapseRepeats bool     // collapse consecutive repeats of a channel in Markov paths
-	PathMaxLen      int      // path keys show at most this many steps
+	PathStats   bool
+	FunnelSteps []string // ordered funnel steps (closed funnel)
+	CartStep    string   // sessions reaching it count towards cart abandonment
 }
 
 // Validate reports the first invalid parameter.
@@ -51,8 +48,8 @@ func (p Params) Validate() error {
 		return fmt.Errorf("the direct channel needs a name")
 	case p.MaxPath <= 0 || p.MaxTouches <= 0:
 		return fmt.Errorf("path and touch limits must be positive")
-	case p.PathStats && (len(p.FunnelSteps) == 0 || p.MarkovMaxOrder < 1 || p.MarkovMaxOrder > 9 || p.PathMaxLen < 1):
-		return fmt.Errorf("path statistics need funnel steps, a Markov order of 1 to 9 and a path length >= 1")
+	case p.PathStats && len(p.FunnelSteps) == 0:
+		return fmt.Errorf("path statistics need funnel steps")
 	}
 	return nil
 }
@@ -69,10 +66,7 @@ type Tracker struct {
 	nano     []int64
 	value    []int64
 	models   []string // model names, index = credit.Model
-	trans    []credit.Transition
 	chans    []string
-	set      []string
-	orders   []string // "k" + RS, index k
 	depths   []string // decimal funnel depths
 }
 
@@ -162,8 +156,7 @@ func (t *Tracker) action(u *UserState, e *event.Event, now int64, b *tally.Batch
 		b.Add(tally.Activity, now, "", tally.Vec{1, 1, 0})
 	} else {
 		b.Add(tally.Activity, now, "", tally.Vec{0, 1, 0})
-		if t.p.PathStats && len(u.Path) > 0 && len(u.Path) < t.p.MaxPath &&
-			b.BucketOf(tally.SessionPaths, u.LastAction) == b.BucketOf(tally.SessionPaths, now) {
+		if t.p.PathStats && len(u.Path) > 0 && len(u.Path) < t.p.MaxPath {
 			last := u.LastAction
 			u.LastAction = now
 			u.PathLen++

@@ -58,7 +58,7 @@ const PathStep = 3600
 // 0 means the finest resolution.
 func MinStep(f Family) int64 {
 	switch f {
-	case ChannelTransitions, Coalitions, ActionTransitions, SessionPaths, JourneyPaths:
+	case SessionPaths, JourneyPaths:
 		return PathStep
 	}
 	return 0
