@@ -117,7 +117,7 @@ func Open(ctx context.Context, o Options) (*Store, error) {
 		WithMetricsEnabled(false).
 		WithLogger(badgerLogger{o.Logger})
 	db, err := badger.Open(bo)
-	if err != nil && errors.Is(err, z.NewFile) {
+	if err != nil && strings.Contains(err.Error(), z.NewFile.Error()) { // Badger wraps without %w
 		// A process killed right after Badger created a memtable file leaves
 		// that file empty, and the next Open fails with z.NewFile; Open has
 		// then set the file up and a second Open succeeds (Badger issue
