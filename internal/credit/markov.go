@@ -263,8 +263,12 @@ const (
 // buildChain validates and interns the counts, turns them into
 // probabilities, prunes states that cannot matter and indexes channels.
 func buildChain(counts []TransitionCount) (*chain, error) {
-	index := map[string]int32{StateStart: 0}
-	names := []string{StateStart}
+	// States have several outgoing transitions each: a quarter of the
+	// counts is a fair first guess at the number of states.
+	index := make(map[string]int32, len(counts)/4+1)
+	index[StateStart] = 0
+	names := make([]string, 1, len(counts)/4+1)
+	names[0] = StateStart
 	intern := func(s string) int32 {
 		if i, ok := index[s]; ok {
 			return i
