@@ -77,6 +77,10 @@ func BenchmarkReplay(b *testing.B) {
 			b.Fatal(err)
 		}
 		b.StopTimer()
+		ps := p.Stats()
+		b.ReportMetric(float64(ps.Commits), "commits")
+		b.ReportMetric(float64(ps.Users), "user-writes")
+		b.ReportMetric(ps.CommitWait.Seconds(), "commit-wait-s")
 		if cp.Counts.Accepted != uint64(stats.Events) {
 			b.Fatalf("accepted %d of %d", cp.Counts.Accepted, stats.Events)
 		}

@@ -85,8 +85,11 @@ type Processor struct {
 	sinceCommit int
 	lastCommit  time.Time
 	inflight    chan error
-	userLimit   int
+	maxBytes    int64 // commit size budget (a share of Badger's transaction limit)
+	maxEntries  int64
 	ndirty      int
+	dirtyBytes  int64 // estimated stored size of the dirty users
+	stats       Stats
 }
 
 const (
@@ -120,7 +123,7 @@ func New(store *state.Store, cfg Config, rejects RejectSink, log *slog.Logger) (
 	// Size commits to fit one Badger transaction with a wide margin:
 	// a user state is a few hundred bytes; counters are few per commit.
 	maxBytes, maxEntries := store.Limits()
-	p.userLimit = int(min(maxEntries/3, maxBytes/2/512))
+	p.maxBytes, p.maxEntries = maxBytes*6/10, maxEntries*6/10
 	if maxSeen, floor, ok, err := p.reader.Watermark(); err != nil {
 		return nil, err
 	} else if ok {
@@ -175,6 +178,16 @@ func (p *Processor) Begin(source string) (Checkpoint, error) {
 	p.ckpt.Done = false
 	return cp, nil
 }
+
+// Stats describe the processor's work since it was made.
+type Stats struct {
+	Commits    int           // commits started
+	CommitWait time.Duration // time the processing goroutine waited for the previous commit
+	Users      int           // user states written
+}
+
+// Stats returns the processor's statistics.
+func (p *Processor) Stats() Stats { return p.stats }
 
 // Counts returns the source's counters so far (committed or not).
 func (p *Processor) Counts() Counts { return p.ckpt.Counts.clone() }
@@ -291,6 +304,8 @@ func (p *Processor) apply(e *event.Event) error {
 		if !c.dirty {
 			c.dirty = true
 			p.ndirty++
+			// Size when first dirtied plus room to grow until the commit.
+			p.dirtyBytes += int64(len(e.User)) + c.u.SizeEstimate() + 96
 		}
 	} else {
 		p.ckpt.Counts.Duplicate++
@@ -326,7 +341,11 @@ func (p *Processor) user(id string) (*cached, error) {
 }
 
 func (p *Processor) needCommit() bool {
-	if p.sinceCommit >= p.cfg.CommitEvents || p.ndirty >= p.userLimit || p.batch.Len() >= p.userLimit {
+	// Counter deltas become one entry per touched bucket and resolution:
+	// far fewer than batch keys; 48 bytes per key bounds their size.
+	keys := int64(p.batch.Len())
+	if p.sinceCommit >= p.cfg.CommitEvents || int64(p.ndirty)+keys >= p.maxEntries ||
+		p.dirtyBytes+48*keys >= p.maxBytes {
 		return true
 	}
 	if p.sinceCommit&1023 == 0 && time.Since(p.lastCommit) >= p.cfg.CommitInterval {
@@ -372,7 +391,10 @@ func (p *Processor) Close() error {
 // processor before anything later is committed.
 func (p *Processor) commit(ctx context.Context, wait bool) error {
 	if p.inflight != nil {
-		if err := <-p.inflight; err != nil {
+		t0 := time.Now()
+		err := <-p.inflight
+		p.stats.CommitWait += time.Since(t0)
+		if err != nil {
 			p.inflight = nil
 			return err
 		}
@@ -394,6 +416,8 @@ func (p *Processor) commit(ctx context.Context, wait bool) error {
 		}
 	}
 	p.batch = tally.NewBatch(p.batch.Step())
+	p.stats.Commits++
+	p.stats.Users += len(c.Users)
 	cp := p.ckpt
 	cp.Pending = p.reorder.Positions(nil)
 	sort.Slice(cp.Pending, func(i, j int) bool { return cp.Pending[i] < cp.Pending[j] })
@@ -421,6 +445,7 @@ func (p *Processor) commit(ctx context.Context, wait bool) error {
 	}
 	p.sinceCommit = 0
 	p.ndirty = 0
+	p.dirtyBytes = 0
 	p.lastCommit = time.Now()
 	ch := make(chan error, 1)
 	p.inflight = ch

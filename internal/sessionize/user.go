@@ -47,6 +47,19 @@ func (u *UserState) HasSeen(h uint64) bool {
 
 const userVersion = 1
 
+// SizeEstimate returns an upper bound of len(u.AppendBinary(nil)).
+func (u *UserState) SizeEstimate() int64 {
+	n := 1 + 3*10 + 2*5
+	for _, a := range u.Path {
+		n += len(a) + 2
+	}
+	for _, t := range u.Touches {
+		n += len(t.Channel) + len(t.Campaign) + 4 + 10 + 1
+	}
+	n += len(u.Seen) * 18
+	return int64(n)
+}
+
 // ErrCorruptUser is returned when a stored user state cannot be decoded.
 var ErrCorruptUser = errors.New("sessionize: corrupt user state")
 
