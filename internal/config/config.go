@@ -59,6 +59,9 @@ type Alert struct {
 	// CloseAfter is how many consecutive intervals below the limit close an
 	// open alert. Default 3.
 	CloseAfter int `yaml:"close_after"`
+	// Target, when above 0, is a fixed in-control abandonment rate used
+	// instead of the rolling baseline (0 < target < 1). Default 0: rolling.
+	Target float64 `yaml:"target"`
 }
 
 // Store configures the embedded Badger store and the commit cadence.

@@ -75,6 +75,9 @@ func (c Config) Validate() error {
 		v.add("alert.baseline", "must be at least alert.interval (%s), got %s", a.Interval, a.Baseline)
 	}
 	v.atLeast("alert.close_after", a.CloseAfter, 1)
+	if !(a.Target >= 0 && a.Target < 1) {
+		v.add("alert.target", "must be 0 (rolling baseline) or a rate between 0 and 1, got %s", number(a.Target))
+	}
 
 	s := c.Store
 	v.resolutions(s.Resolutions)

@@ -73,6 +73,7 @@ func QueryParams(c config.Config) query.Params {
 			MinSessions: int64(c.Alert.MinSessions),
 			Baseline:    max(1, int(c.Alert.Baseline.D()/step)),
 			CloseAfter:  c.Alert.CloseAfter,
+			Target:      c.Alert.Target,
 		},
 	}
 }
