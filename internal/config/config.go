@@ -59,6 +59,10 @@ type Alert struct {
 	// CloseAfter is how many consecutive intervals below the limit close an
 	// open alert. Default 3.
 	CloseAfter int `yaml:"close_after"`
+	// Step is the funnel step whose abandonment is watched: sessions that
+	// reached it (in order) and did not reach the last step. Default
+	// checkout (a failing payment page shows here first).
+	Step string `yaml:"step"`
 	// Target, when above 0, is a fixed in-control abandonment rate used
 	// instead of the rolling baseline (0 < target < 1). Default 0: rolling.
 	Target float64 `yaml:"target"`
@@ -203,6 +207,7 @@ func Default() Config {
 			MinSessions: 30,
 			Baseline:    Duration(7 * day),
 			CloseAfter:  3,
+			Step:        "checkout",
 		},
 		Store: Store{
 			Resolutions: []Resolution{

@@ -46,7 +46,7 @@ func TestDefault(t *testing.T) {
 		PathMaxLen:        8,
 		TopPathsCapacity:  1000,
 		Alert: Alert{Interval: Duration(5 * time.Minute), Lambda: 0.2, Limit: 3, MinSessions: 30,
-			Baseline: Duration(168 * time.Hour), CloseAfter: 3},
+			Baseline: Duration(168 * time.Hour), CloseAfter: 3, Step: "checkout"},
 		Store: Store{
 			Resolutions: []Resolution{
 				{"5m", Duration(5 * time.Minute), Duration(14 * 24 * time.Hour)},
@@ -233,7 +233,7 @@ func TestValidate(t *testing.T) {
 		{"repeated conversion action", func(c *Config) { c.ConversionActions = []string{"purchase", "signup", "purchase"} }, []string{"conversion_actions[2]"}},
 		{"conversion action longer than max_name", func(c *Config) { c.ConversionActions = []string{strings.Repeat("x", 129)} }, []string{"conversion_actions[0]"}},
 		{"conversion action with a control character", func(c *Config) { c.ConversionActions = []string{"buy\x1f"} }, []string{"conversion_actions[0]"}},
-		{"no funnel steps", func(c *Config) { c.FunnelSteps = []string{} }, []string{"funnel_steps"}},
+		{"no funnel steps", func(c *Config) { c.FunnelSteps = []string{} }, []string{"funnel_steps", "alert.step"}},
 		{"repeated funnel step", func(c *Config) { c.FunnelSteps = []string{"view_item", "checkout", "view_item"} }, []string{"funnel_steps[2]"}},
 		{"empty cart step", func(c *Config) { c.CartStep = "" }, []string{"cart_step"}},
 		{"click lookback zero", func(c *Config) { c.ClickLookback = 0 }, []string{"click_lookback", "view_lookback"}},

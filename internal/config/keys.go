@@ -32,6 +32,7 @@ var keyDocs = []struct{ Key, Doc string }{
 	{"alert.min_sessions", `Fewest sessions an interval needs to be judged.`},
 	{"alert.baseline", `History pooled for the in-control abandonment rate; at least one interval.`},
 	{"alert.close_after", `Consecutive intervals below the limit that close an open alert.`},
+	{"alert.step", `Funnel step whose abandonment is watched: sessions that reached it and not the last step.`},
 	{"alert.target", `Fixed in-control abandonment rate instead of the rolling baseline; 0 uses the rolling baseline.`},
 	{"store", `The embedded store (Badger) and the commit cadence.`},
 	{"store.resolutions", `Bucket sizes counters are kept at, finest first: name, step (each step divides the next), retention (0 keeps forever; otherwise at least one step). Names are unique.`},

@@ -75,6 +75,9 @@ func (c Config) Validate() error {
 		v.add("alert.baseline", "must be at least alert.interval (%s), got %s", a.Interval, a.Baseline)
 	}
 	v.atLeast("alert.close_after", a.CloseAfter, 1)
+	if i := slices.Index(c.FunnelSteps, a.Step); i < 0 || i == len(c.FunnelSteps)-1 {
+		v.add("alert.step", "must be a funnel step other than the last, got %q", a.Step)
+	}
 	if !(a.Target >= 0 && a.Target < 1) {
 		v.add("alert.target", "must be 0 (rolling baseline) or a rate between 0 and 1, got %s", number(a.Target))
 	}

@@ -46,6 +46,7 @@ func TestAbandonmentSpikeOpensAlert(t *testing.T) {
 	}
 	c := config.Default()
 	c.Alert.Target = 0.10
+	c.Alert.Step = "add_to_cart" // cart sessions that do not buy
 	dir := t.TempDir()
 	cp := replayBytes(t, dir, FromConfig(c), "spike", []byte(strings.Join(lines, "\n")))
 	if cp.Counts.Accepted != uint64(len(lines)) {

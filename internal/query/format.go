@@ -359,7 +359,7 @@ func WriteAlerts(w io.Writer, a AlertsAnswer, f Format) error {
 		}
 		return csvOut(w, rows)
 	}
-	fmt.Fprintf(w, "cart-abandonment alerts · %s intervals · %s to %s\n\n", a.Interval, a.From, a.To)
+	fmt.Fprintf(w, "%s alerts · %s intervals · %s to %s\n\n", strings.ReplaceAll(a.Name, "_", " "), a.Interval, a.From, a.To)
 	if len(a.Alerts) == 0 {
 		fmt.Fprintln(w, "no alerts in this window")
 	} else {
@@ -377,7 +377,7 @@ func WriteAlerts(w io.Writer, a AlertsAnswer, f Format) error {
 	if len(a.Points) > 0 {
 		fmt.Fprintln(w)
 		tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
-		fmt.Fprintln(tw, "INTERVAL\tCART SESSIONS\tABANDONED\tRATE\tEWMA\tLIMIT\t\t")
+		fmt.Fprintln(tw, "INTERVAL\tSESSIONS AT STEP\tABANDONED\tRATE\tEWMA\tLIMIT\t\t")
 		for _, p := range a.Points {
 			mark := ""
 			if p.Alerting {

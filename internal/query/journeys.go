@@ -27,6 +27,7 @@ type Params struct {
 	FunnelSteps     []string
 	CartStep        string
 	AlertInterval   time.Duration
+	AlertStep       string       // funnel step whose abandonment is watched
 	Alert           alert.Params // Baseline in intervals
 }
 
@@ -462,6 +463,7 @@ func Funnel(steps []string, plan Plan, t tally.Table) FunnelAnswer {
 
 // AlertsAnswer is the answer of `query alerts`.
 type AlertsAnswer struct {
+	Name     string        `json:"name"` // what is watched, e.g. checkout_abandonment
 	From     string        `json:"from"`
 	To       string        `json:"to"`
 	Interval string        `json:"interval"`
@@ -493,11 +495,12 @@ type AlertPoint struct {
 	Alerting  bool    `json:"alerting"`
 }
 
-// CartIntervals turns per-bucket funnel tables into the cart-abandonment
-// series: per interval, sessions that reached the cart step (by session end)
-// and those of them that did not convert. Buckets must be interval-aligned
-// and at most one interval long.
-func CartIntervals(from, to time.Time, interval time.Duration, buckets map[int64]tally.Table) []alert.Interval {
+// StepIntervals turns per-bucket funnel tables into the abandonment series of
+// funnel step s (0-based) of n steps: per interval (by session end), the
+// sessions that reached step s in order (depth > s) and those of them that
+// did not reach the last step (depth < n). Buckets are keyed by interval
+// start.
+func StepIntervals(from, to time.Time, interval time.Duration, s, n int, buckets map[int64]tally.Table) []alert.Interval {
 	step := int64(interval / time.Second)
 	var out []alert.Interval
 	for s := from.Unix(); s < to.Unix(); s += step {
@@ -508,23 +511,29 @@ func CartIntervals(from, to time.Time, interval time.Duration, buckets map[int64
 		if i < 0 || int(i) >= len(out) {
 			continue
 		}
-		for _, v := range t {
-			out[i].Sessions += v[1]
-			out[i].Abandons += v[1] - v[2]
+		for dims, v := range t {
+			d, err := strconv.Atoi(dims)
+			if err != nil || d <= s {
+				continue
+			}
+			out[i].Sessions += v[0]
+			if d < n {
+				out[i].Abandons += v[0]
+			}
 		}
 	}
 	return out
 }
 
 // Alerts runs the abandonment detector over the series.
-func Alerts(plan Plan, interval time.Duration, series []alert.Interval, p alert.Params, withPoints bool) (AlertsAnswer, error) {
-	a := AlertsAnswer{From: FormatTime(plan.From), To: FormatTime(plan.To), Interval: interval.String(), Alerts: []AlertRecord{}}
+func Alerts(name string, plan Plan, interval time.Duration, series []alert.Interval, p alert.Params, withPoints bool) (AlertsAnswer, error) {
+	a := AlertsAnswer{Name: name, From: FormatTime(plan.From), To: FormatTime(plan.To), Interval: interval.String(), Alerts: []AlertRecord{}}
 	pts, als, err := alert.Detect(series, p)
 	if err != nil {
 		return a, err
 	}
 	for _, x := range als {
-		r := AlertRecord{Name: "cart_abandonment", Opened: FormatTime(x.Opened), Open: x.Closed.IsZero(),
+		r := AlertRecord{Name: name, Opened: FormatTime(x.Opened), Open: x.Closed.IsZero(),
 			Rate: x.Rate, Baseline: x.Baseline, Limit: x.Limit, Peak: x.Peak}
 		if !x.Closed.IsZero() {
 			r.Closed = FormatTime(x.Closed)

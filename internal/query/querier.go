@@ -3,6 +3,7 @@ package query
 import (
 	"errors"
 	"fmt"
+	"slices"
 	"sort"
 	"time"
 
@@ -263,12 +264,17 @@ func (q *Querier) Alerts(s Span, withPoints bool) (AlertsAnswer, error) {
 	if err != nil {
 		return AlertsAnswer{}, err
 	}
-	series := CartIntervals(time.Unix(warm, 0), time.Unix(to, 0), iv, buckets)
-	all, err := Alerts(Plan{From: time.Unix(warm, 0).UTC(), To: time.Unix(to, 0).UTC()}, iv, series, q.p.Alert, withPoints)
+	si := slices.Index(q.p.FunnelSteps, q.p.AlertStep)
+	if si < 0 || si == len(q.p.FunnelSteps)-1 {
+		return AlertsAnswer{}, fmt.Errorf("alert step %q is not a funnel step before the last", q.p.AlertStep)
+	}
+	series := StepIntervals(time.Unix(warm, 0), time.Unix(to, 0), iv, si, len(q.p.FunnelSteps), buckets)
+	name := q.p.AlertStep + "_abandonment"
+	all, err := Alerts(name, Plan{From: time.Unix(warm, 0).UTC(), To: time.Unix(to, 0).UTC()}, iv, series, q.p.Alert, withPoints)
 	if err != nil {
 		return AlertsAnswer{}, err
 	}
-	a := AlertsAnswer{From: FormatTime(time.Unix(from, 0)), To: FormatTime(time.Unix(to, 0)), Interval: all.Interval, Alerts: []AlertRecord{}}
+	a := AlertsAnswer{Name: name, From: FormatTime(time.Unix(from, 0)), To: FormatTime(time.Unix(to, 0)), Interval: all.Interval, Alerts: []AlertRecord{}}
 	for _, al := range all.Alerts {
 		opened, _ := time.Parse(time.RFC3339, al.Opened)
 		closed, _ := time.Parse(time.RFC3339, al.Closed)
