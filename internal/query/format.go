@@ -383,7 +383,11 @@ func WriteAlerts(w io.Writer, a AlertsAnswer, f Format) error {
 			if p.Alerting {
 				mark = "ALERT"
 			}
-			fmt.Fprintf(tw, "%s\t%d\t%d\t%s\t%s\t%s\t%s\t\n", p.Start, p.Sessions, p.Abandons, pct(p.Rate), pct(p.Statistic), pct(p.Limit), mark)
+			stat, lim := pct(p.Statistic), pct(p.Limit)
+			if !p.Evaluated {
+				stat, lim, mark = "-", "-", "(too few sessions)"
+			}
+			fmt.Fprintf(tw, "%s\t%d\t%d\t%s\t%s\t%s\t%s\t\n", p.Start, p.Sessions, p.Abandons, pct(p.Rate), stat, lim, mark)
 		}
 		tw.Flush()
 	}

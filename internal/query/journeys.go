@@ -492,6 +492,7 @@ type AlertPoint struct {
 	Statistic float64 `json:"statistic"`
 	Baseline  float64 `json:"baseline"`
 	Limit     float64 `json:"limit"`
+	Evaluated bool    `json:"evaluated"` // false: too few sessions (min_sessions) or no baseline yet
 	Alerting  bool    `json:"alerting"`
 }
 
@@ -543,7 +544,7 @@ func Alerts(name string, plan Plan, interval time.Duration, series []alert.Inter
 	if withPoints {
 		for _, pt := range pts {
 			a.Points = append(a.Points, AlertPoint{Start: FormatTime(pt.Start), Sessions: pt.Sessions, Abandons: pt.Abandons,
-				Rate: pt.Rate, Statistic: pt.Statistic, Baseline: pt.Baseline, Limit: pt.UCL, Alerting: pt.Alerting})
+				Rate: pt.Rate, Statistic: pt.Statistic, Baseline: pt.Baseline, Limit: pt.UCL, Evaluated: pt.Evaluated, Alerting: pt.Alerting})
 		}
 	}
 	return a, nil
