@@ -2,6 +2,7 @@ package pipeline
 
 import (
 	"context"
+	"fmt"
 	"os"
 	"path/filepath"
 	"strconv"
@@ -34,6 +35,12 @@ func peakRSSMiB() float64 {
 // demo events: 200 000 visitors, about 1 M events. Targets (issue 2):
 // >= 700 k events/s and peak memory <= 600 MiB on a 2-core machine.
 func BenchmarkReplay(b *testing.B) {
+	for _, paths := range []bool{false, true} {
+		b.Run(fmt.Sprintf("pathstats=%v", paths), func(b *testing.B) { benchReplay(b, paths) })
+	}
+}
+
+func benchReplay(b *testing.B, paths bool) {
 	c := shop.DefaultConfig()
 	c.Visitors = 200000
 	if testing.Short() {
@@ -60,7 +67,9 @@ func BenchmarkReplay(b *testing.B) {
 		if err != nil {
 			b.Fatal(err)
 		}
-		p, err := New(st, FromConfig(cfg), nil, nil)
+		pc := FromConfig(cfg)
+		pc.Tracker.PathStats = paths
+		p, err := New(st, pc, nil, nil)
 		if err != nil {
 			b.Fatal(err)
 		}
