@@ -57,6 +57,9 @@ func benchReplay(b *testing.B, paths bool) {
 	}
 	f.Close()
 	cfg := config.Default()
+	if v := os.Getenv("TL_BENCH_CACHE_USERS"); v != "" {
+		cfg.Store.CacheUsers, _ = strconv.Atoi(v)
+	}
 	b.ReportAllocs()
 	b.ResetTimer()
 	n := 0
