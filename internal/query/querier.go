@@ -16,32 +16,83 @@ import (
 // ErrNoData is returned when the data directory holds no committed events.
 var ErrNoData = errors.New("no data: nothing has been ingested into this data directory yet (run ingest first)")
 
-// Querier answers queries from a consistent snapshot of a store.
+// Source is where a Querier reads counters: a snapshot of a local store, or
+// the merged answers of several workers. Every table is a plain sum, so
+// merging sources is addition.
+type Source interface {
+	// Latest returns the largest event time seen; ok is false when nothing
+	// was ingested.
+	Latest() (t time.Time, ok bool, err error)
+	// Sum adds family f over the plan's buckets into a new table.
+	Sum(p Plan, f tally.Family) (tally.Table, error)
+	// Buckets returns family f per bucket of resolution res (index into the
+	// store's resolutions) for bucket starts in [from, to), Unix seconds.
+	Buckets(res int, f tally.Family, from, to int64) (map[int64]tally.Table, error)
+	// Close releases the source.
+	Close()
+}
+
+// LocalSource reads a consistent snapshot of a local store.
+type LocalSource struct{ r *state.Reader }
+
+// NewLocalSource opens a snapshot of s.
+func NewLocalSource(s *state.Store) *LocalSource { return &LocalSource{r: s.NewReader()} }
+
+// Latest implements Source.
+func (l *LocalSource) Latest() (time.Time, bool, error) {
+	maxSeen, _, ok, err := l.r.Watermark()
+	if err != nil || !ok || maxSeen == -1<<63 {
+		return time.Time{}, false, err
+	}
+	return time.Unix(0, maxSeen).UTC(), true, nil
+}
+
+// Sum implements Source.
+func (l *LocalSource) Sum(p Plan, f tally.Family) (tally.Table, error) { return Sum(l.r, p, f) }
+
+// Buckets implements Source.
+func (l *LocalSource) Buckets(res int, f tally.Family, from, to int64) (map[int64]tally.Table, error) {
+	out := map[int64]tally.Table{}
+	err := l.r.Buckets(res, f, from, to, func(b int64, t tally.Table) error {
+		out[b] = t
+		return nil
+	})
+	return out, err
+}
+
+// Close implements Source.
+func (l *LocalSource) Close() { l.r.Discard() }
+
+// Querier answers queries from a Source.
 type Querier struct {
-	r       *state.Reader
-	s       *state.Store
+	src     Source
 	res     []state.Resolution
 	maxSeen time.Time
 	p       Params
 }
 
-// NewQuerier opens a snapshot of s. Close it when done.
+// NewQuerier answers from a snapshot of a local store. Close it when done.
 func NewQuerier(s *state.Store, p Params) (*Querier, error) {
-	r := s.NewReader()
-	maxSeen, _, ok, err := r.Watermark()
-	if err != nil {
-		r.Discard()
-		return nil, err
-	}
-	if !ok || maxSeen == -1<<63 {
-		r.Discard()
-		return nil, ErrNoData
-	}
-	return &Querier{r: r, s: s, res: s.Resolutions(), maxSeen: time.Unix(0, maxSeen).UTC(), p: p}, nil
+	return NewQuerierFrom(NewLocalSource(s), s.Resolutions(), p)
 }
 
-// Close releases the snapshot.
-func (q *Querier) Close() { q.r.Discard() }
+// NewQuerierFrom answers from src, whose buckets follow res. It takes
+// ownership of src.
+func NewQuerierFrom(src Source, res []state.Resolution, p Params) (*Querier, error) {
+	latest, ok, err := src.Latest()
+	if err != nil {
+		src.Close()
+		return nil, err
+	}
+	if !ok {
+		src.Close()
+		return nil, ErrNoData
+	}
+	return &Querier{src: src, res: res, maxSeen: latest, p: p}, nil
+}
+
+// Close releases the source.
+func (q *Querier) Close() { q.src.Close() }
 
 // Latest returns the latest event time seen: the end of --last windows.
 func (q *Querier) Latest() time.Time { return q.maxSeen }
@@ -66,7 +117,7 @@ func (q *Querier) PlanFor(f tally.Family, s Span) (Plan, error) {
 	if err != nil {
 		return Plan{}, err
 	}
-	idx := q.s.FamilyResolutions(f)
+	idx := state.FamilyResolutions(q.res, f)
 	sub := make([]state.Resolution, len(idx))
 	for i, j := range idx {
 		sub[i] = q.res[j]
@@ -104,7 +155,7 @@ func (q *Querier) resolve(s Span) (time.Time, time.Time, error) {
 }
 
 // Table sums family f over the plan.
-func (q *Querier) Table(p Plan, f tally.Family) (tally.Table, error) { return Sum(q.r, p, f) }
+func (q *Querier) Table(p Plan, f tally.Family) (tally.Table, error) { return q.src.Sum(p, f) }
 
 // Credit answers `query credit`. order applies to the Markov model (0 = 1).
 func (q *Querier) Credit(model string, by string, order int, s Span) (CreditAnswer, error) {
@@ -252,17 +303,17 @@ func (q *Querier) Alerts(s Span, withPoints bool) (AlertsAnswer, error) {
 	if warm > from {
 		from = warm
 	}
+	raw, err := q.src.Buckets(res, tally.Funnel, warm, to)
+	if err != nil {
+		return AlertsAnswer{}, err
+	}
 	buckets := map[int64]tally.Table{}
-	err = q.r.Buckets(res, tally.Funnel, warm, to, func(b int64, t tally.Table) error {
+	for b, t := range raw {
 		k := tally.FloorDiv(b, step) * step
 		if buckets[k] == nil {
 			buckets[k] = tally.Table{}
 		}
 		buckets[k].AddTable(t)
-		return nil
-	})
-	if err != nil {
-		return AlertsAnswer{}, err
 	}
 	si := slices.Index(q.p.FunnelSteps, q.p.AlertStep)
 	if si < 0 || si == len(q.p.FunnelSteps)-1 {

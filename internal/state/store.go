@@ -165,8 +165,14 @@ func (s *Store) Resolutions() []Resolution { return s.opt.Resolutions }
 // FamilyResolutions returns the indices of the resolutions family f is kept
 // at (steps of at least tally.MinStep(f)), finest first.
 func (s *Store) FamilyResolutions(f tally.Family) []int {
+	return FamilyResolutions(s.opt.Resolutions, f)
+}
+
+// FamilyResolutions returns the indices of the resolutions in rs that family
+// f is kept at, finest first.
+func FamilyResolutions(rs []Resolution, f tally.Family) []int {
 	var out []int
-	for i, r := range s.opt.Resolutions {
+	for i, r := range rs {
 		if int64(r.Step/time.Second) >= tally.MinStep(f) {
 			out = append(out, i)
 		}
