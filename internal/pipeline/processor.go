@@ -7,6 +7,7 @@ import (
 	"fmt"
 	"log/slog"
 	"sort"
+	"sync"
 	"time"
 
 	"github.com/cespare/xxhash/v2"
@@ -37,6 +38,17 @@ type Config struct {
 	CacheUsers     int           // user states kept in memory (bounded; at most ~2× between commits)
 	CommitEvents   int           // commit after this many inputs
 	CommitInterval time.Duration // or after this much wall time, whichever comes first
+
+	// PersistPending stores the payloads of events waiting in the reorder
+	// buffer with each commit, so a restart finds them in the store instead
+	// of reading them again from the input (live input, whose positions
+	// before the acknowledged one cannot be read again). Replay from a file
+	// leaves it off: it re-reads the buffered lines by position.
+	PersistPending bool
+	// OnCommit, if set, is called after each successful commit with the
+	// committed checkpoint, on the committing goroutine. Live input
+	// acknowledges its messages here.
+	OnCommit func(source string, cp Checkpoint)
 }
 
 // Validate checks the configuration.
@@ -90,11 +102,46 @@ type Processor struct {
 	ndirty      int
 	dirtyBytes  int64 // estimated stored size of the dirty users
 	stats       Stats
+
+	// PersistPending bookkeeping since the last commit.
+	pendingNew map[uint64][]byte // pushed, not yet persisted
+	released   []uint64          // persisted earlier and applied since
+	persisted  map[uint64]bool   // positions persisted and still buffered
+
+	lastArrival time.Time // wall time of the last Offer (for Tick)
+	lastEvent   int64     // largest event time seen at that moment
+
+	mu     sync.Mutex // guards status
+	status Status
+}
+
+// Status is the processor's committed progress, safe to read from any
+// goroutine (metrics, health checks).
+type Status struct {
+	Source      string
+	Counts      Counts        // as of the last commit
+	Next        uint64        // every position below was read, as of the last commit
+	Watermark   time.Time     // as of the last commit
+	LatestEvent time.Time     // largest event time seen, as of the last commit
+	Commits     int           // commits completed
+	LastCommit  time.Time     // wall time of the last completed commit
+	CommitTook  time.Duration // duration of the last commit
+	Buffered    int           // events waiting in the reorder buffer at the last commit
+}
+
+// Status returns the committed progress (safe for concurrent use).
+func (p *Processor) Status() Status {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	s := p.status
+	s.Counts = s.Counts.clone()
+	return s
 }
 
 const (
 	metaRejects = state.MetaRejects
 	metaOpen    = state.MetaOpen
+	minInt64    = -1 << 63
 )
 
 // New returns a processor over an open store.
@@ -119,6 +166,9 @@ func New(store *state.Store, cfg Config, rejects RejectSink, log *slog.Logger) (
 		cur:     make(map[string]*cached),
 		prev:    make(map[string]*cached),
 		reader:  store.NewReader(),
+
+		pendingNew: make(map[uint64][]byte),
+		persisted:  make(map[uint64]bool),
 	}
 	// Size commits to fit one Badger transaction with a wide margin:
 	// a user state is a few hundred bytes; counters are few per commit.
@@ -176,6 +226,19 @@ func (p *Processor) Begin(source string) (Checkpoint, error) {
 	cp := p.ckpt
 	cp.Pending = append([]uint64(nil), p.ckpt.Pending...)
 	p.ckpt.Done = false
+	if p.cfg.PersistPending {
+		err := p.reader.Pending(source, func(pos uint64, payload []byte) error {
+			e, err := p.dec.Decode(payload)
+			if err := p.ReadmitDecoded(pos, &e, err); err != nil {
+				return err
+			}
+			p.persisted[pos] = true
+			return nil
+		})
+		if err != nil {
+			return Checkpoint{}, fmt.Errorf("pipeline: restore buffered events: %w", err)
+		}
+	}
 	return cp, nil
 }
 
@@ -258,10 +321,17 @@ func (p *Processor) OfferDecoded(ctx context.Context, pos uint64, payload []byte
 		}
 	} else {
 		p.reorder.Push(e, pos)
+		if p.cfg.PersistPending {
+			p.pendingNew[pos] = append([]byte(nil), payload...)
+		}
+		if t := e.Time.UnixNano(); t > p.lastEvent {
+			p.lastEvent = t
+		}
 		if err := p.release(); err != nil {
 			return err
 		}
 	}
+	p.lastArrival = time.Now()
 	p.sinceCommit++
 	if p.needCommit() {
 		return p.commit(ctx, false)
@@ -288,10 +358,49 @@ func (p *Processor) release() error {
 	var ferr error
 	p.reorder.Release(func(it *sessionize.Item) {
 		if ferr == nil {
+			p.forgetPending(it.Pos)
 			ferr = p.apply(&it.Event)
 		}
 	})
 	return ferr
+}
+
+// forgetPending notes that the buffered event at pos was applied.
+func (p *Processor) forgetPending(pos uint64) {
+	if !p.cfg.PersistPending {
+		return
+	}
+	if _, ok := p.pendingNew[pos]; ok {
+		delete(p.pendingNew, pos) // pushed and applied between two commits
+		return
+	}
+	if p.persisted[pos] {
+		delete(p.persisted, pos)
+		p.released = append(p.released, pos)
+	}
+}
+
+// Tick lets event time advance with the wall clock while the input is quiet:
+// the largest event time seen is raised to lastEvent + (now − last arrival),
+// never beyond now, so a partition that receives nothing still releases its
+// buffered events and closes its sessions. It also commits when the commit
+// interval has passed with changes pending. Live input only: replay never
+// uses the wall clock.
+func (p *Processor) Tick(ctx context.Context, now time.Time) error {
+	if !p.lastArrival.IsZero() && p.lastEvent != 0 {
+		adv := p.lastEvent + int64(now.Sub(p.lastArrival))
+		if adv > now.UnixNano() {
+			adv = now.UnixNano()
+		}
+		p.reorder.Advance(adv)
+		if err := p.release(); err != nil {
+			return err
+		}
+	}
+	if (p.sinceCommit > 0 || p.batch.Len() > 0 || len(p.released) > 0) && time.Since(p.lastCommit) >= p.cfg.CommitInterval {
+		return p.commit(ctx, false)
+	}
+	return nil
 }
 
 func (p *Processor) apply(e *event.Event) error {
@@ -361,6 +470,7 @@ func (p *Processor) Finish(ctx context.Context, drain bool) error {
 		var ferr error
 		p.reorder.Drain(func(it *sessionize.Item) {
 			if ferr == nil {
+				p.forgetPending(it.Pos)
 				ferr = p.apply(&it.Event)
 			}
 		})
@@ -404,6 +514,7 @@ func (p *Processor) commit(ctx context.Context, wait bool) error {
 		p.reader = p.store.NewReader()
 	}
 	c := &state.Commit{
+		Source:      p.source,
 		Users:       make(map[string][]byte),
 		Counters:    p.batch,
 		Checkpoints: map[string][]byte{},
@@ -419,14 +530,23 @@ func (p *Processor) commit(ctx context.Context, wait bool) error {
 	p.stats.Commits++
 	p.stats.Users += len(c.Users)
 	cp := p.ckpt
-	cp.Pending = p.reorder.Positions(nil)
-	sort.Slice(cp.Pending, func(i, j int) bool { return cp.Pending[i] < cp.Pending[j] })
+	if p.cfg.PersistPending {
+		c.Pending, c.Released = p.pendingNew, p.released
+		for pos := range p.pendingNew {
+			p.persisted[pos] = true
+		}
+		p.pendingNew, p.released = make(map[uint64][]byte), nil
+		cp.Pending = nil
+	} else {
+		cp.Pending = p.reorder.Positions(nil)
+		sort.Slice(cp.Pending, func(i, j int) bool { return cp.Pending[i] < cp.Pending[j] })
+	}
 	cp.Counts = p.ckpt.Counts.clone()
 	cb, _ := cp.MarshalBinary()
 	if p.source != "" {
 		c.Checkpoints[p.source] = cb
 	}
-	if len(cp.Pending) > 0 {
+	if len(cp.Pending) > 0 || (p.cfg.PersistPending && p.reorder.Len() > 0) {
 		c.Meta[metaOpen] = []byte(p.source)
 	} else {
 		c.Meta[metaOpen] = []byte{}
@@ -449,10 +569,25 @@ func (p *Processor) commit(ctx context.Context, wait bool) error {
 	p.lastCommit = time.Now()
 	ch := make(chan error, 1)
 	p.inflight = ch
+	source, buffered := p.source, p.reorder.Len()
+	wm, latest := p.reorder.Watermark(), p.reorder.MaxSeen()
 	go func() {
 		st, err := p.store.Commit(ctx, c)
 		if err == nil {
 			p.log.Debug("committed", "entries", st.Entries, "bytes", st.Bytes, "took", st.Took)
+			p.mu.Lock()
+			p.status = Status{Source: source, Counts: cp.Counts, Next: cp.Next, Commits: p.status.Commits + 1,
+				LastCommit: time.Now(), CommitTook: st.Took, Buffered: buffered}
+			if wm != minInt64 {
+				p.status.Watermark = time.Unix(0, wm).UTC()
+			}
+			if latest != minInt64 {
+				p.status.LatestEvent = time.Unix(0, latest).UTC()
+			}
+			p.mu.Unlock()
+			if p.cfg.OnCommit != nil {
+				p.cfg.OnCommit(source, cp)
+			}
 		}
 		ch <- err
 	}()

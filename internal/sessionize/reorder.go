@@ -86,6 +86,15 @@ func (r *Reorder) Push(e *event.Event, pos uint64) {
 	r.add(e, pos, t)
 }
 
+// Advance raises the largest event time seen to t if it is larger (the
+// watermark follows), without adding an event. Live input uses it to let
+// event time pass while nothing arrives.
+func (r *Reorder) Advance(t int64) {
+	if t > r.maxSeen {
+		r.maxSeen = t
+	}
+}
+
 // Readmit puts back an event that was buffered when the state was committed,
 // without moving the watermark (it was counted then).
 func (r *Reorder) Readmit(e *event.Event, pos uint64) { r.add(e, pos, e.Time.UnixNano()) }

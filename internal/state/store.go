@@ -224,7 +224,17 @@ const (
 	prefixCounter    = 'c'
 	prefixCheckpoint = 'k'
 	prefixMeta       = 'm'
+	prefixPending    = 'p'
 )
+
+// pendingKey is 'p' | source | 0x00 | position (8 bytes, big-endian).
+func pendingKey(source string, pos uint64) []byte {
+	k := make([]byte, 0, len(source)+10)
+	k = append(k, prefixPending)
+	k = append(k, source...)
+	k = append(k, 0)
+	return binary.BigEndian.AppendUint64(k, pos)
+}
 
 func userKey(id string) []byte { return append([]byte{prefixUser}, id...) }
 
@@ -257,6 +267,9 @@ func bucketOfKey(k []byte) int64 { return int64(binary.BigEndian.Uint64(k[3:11])
 
 // Commit is one atomic unit of change.
 type Commit struct {
+	Source      string            // the input the pending events below belong to
+	Pending     map[uint64][]byte // input position → payload of an event now waiting in the reorder buffer
+	Released    []uint64          // positions of persisted pending events that were applied
 	Users       map[string][]byte // user id → encoded state; nil value deletes
 	Counters    *tally.Batch      // deltas at the finest resolution, fanned out to all
 	Checkpoints map[string][]byte // source → encoded checkpoint
@@ -302,6 +315,17 @@ func (s *Store) Commit(ctx context.Context, c *Commit) (CommitStats, error) {
 	if c.Counters != nil {
 		if err := s.mergeCounters(txn, c.Counters, set); err != nil {
 			return st, err
+		}
+	}
+	for pos, v := range c.Pending {
+		if err := set(pendingKey(c.Source, pos), v); err != nil {
+			return st, err
+		}
+	}
+	for _, pos := range c.Released {
+		st.Entries++
+		if err := txn.Delete(pendingKey(c.Source, pos)); err != nil {
+			return st, fmt.Errorf("state: delete pending: %w", err)
 		}
 	}
 	for src, v := range c.Checkpoints {
@@ -492,6 +516,31 @@ func (r *Reader) Sum(res int, f tally.Family, from, to int64, t tally.Table) err
 		t.AddTable(b)
 		return nil
 	})
+}
+
+// Pending calls fn, in position order, for every persisted pending event of
+// a source (events that were waiting in the reorder buffer at the last
+// commit).
+func (r *Reader) Pending(source string, fn func(pos uint64, payload []byte) error) error {
+	opts := badger.DefaultIteratorOptions
+	prefix := pendingKey(source, 0)[:len(source)+2]
+	opts.Prefix = prefix
+	it := r.txn.NewIterator(opts)
+	defer it.Close()
+	for it.Rewind(); it.Valid(); it.Next() {
+		k := it.Item().Key()
+		if len(k) != len(prefix)+8 {
+			continue
+		}
+		v, err := it.Item().ValueCopy(nil)
+		if err != nil {
+			return err
+		}
+		if err := fn(binary.BigEndian.Uint64(k[len(prefix):]), v); err != nil {
+			return err
+		}
+	}
+	return nil
 }
 
 // Users calls fn for every stored user id (for erasure scans and tests).
