@@ -18,6 +18,7 @@ import (
 	"fmt"
 	"io"
 	"os"
+	"path/filepath"
 	"strings"
 	"time"
 
@@ -145,6 +146,9 @@ func run(args []string, stdout, stderr io.Writer) int {
 	}
 	if _, err := os.Stat(*dataDir); err != nil {
 		return fail(1, fmt.Errorf("data directory: %w", err))
+	}
+	if _, err := os.Stat(filepath.Join(*dataDir, "MANIFEST")); err != nil {
+		return fail(1, fmt.Errorf("%s is not a touchledger data directory (no store in it; run ingest first)", *dataDir))
 	}
 	st, err := state.Open(context.Background(), pipeline.StoreOptions(*dataDir, cfg))
 	if err != nil {
