@@ -11,6 +11,7 @@ import (
 	"time"
 
 	"github.com/cespare/xxhash/v2"
+	"github.com/dgraph-io/ristretto/v2/z"
 
 	"github.com/touchledger/touchledger/internal/event"
 	"github.com/touchledger/touchledger/internal/sessionize"
@@ -91,6 +92,7 @@ type Processor struct {
 
 	cur, prev map[string]*cached
 	reader    *state.Reader
+	known     *z.Bloom // hashes of user ids that may be stored; a miss means a new user, no store read
 
 	source      string
 	ckpt        Checkpoint
@@ -138,6 +140,11 @@ func (p *Processor) Status() Status {
 	return s
 }
 
+// knownUsers sizes the filter of stored user ids (about 4.8 MB at a 1 %
+// false-positive rate). Beyond it the false-positive rate grows and more
+// lookups read the store; answers never change.
+const knownUsers = 4_000_000
+
 const (
 	metaRejects = state.MetaRejects
 	metaOpen    = state.MetaOpen
@@ -169,6 +176,13 @@ func New(store *state.Store, cfg Config, rejects RejectSink, log *slog.Logger) (
 
 		pendingNew: make(map[uint64][]byte),
 		persisted:  make(map[uint64]bool),
+		known:      z.NewBloomFilter(float64(knownUsers), 0.01),
+	}
+	if err := p.reader.Users(func(id string) error {
+		p.known.Add(xxhash.Sum64String(id))
+		return nil
+	}); err != nil {
+		return nil, fmt.Errorf("pipeline: index stored users: %w", err)
 	}
 	// Size commits to fit one Badger transaction with a wide margin:
 	// a user state is a few hundred bytes; counters are few per commit.
@@ -412,6 +426,7 @@ func (p *Processor) apply(e *event.Event) error {
 		p.ckpt.Counts.Accepted++
 		if !c.dirty {
 			c.dirty = true
+			p.known.Add(xxhash.Sum64String(e.User))
 			p.ndirty++
 			// Size when first dirtied plus room to grow until the commit.
 			p.dirtyBytes += int64(len(e.User)) + c.u.SizeEstimate() + 96
@@ -436,6 +451,10 @@ func (p *Processor) user(id string) (*cached, error) {
 		return c, nil
 	}
 	c := &cached{}
+	if !p.known.Has(xxhash.Sum64String(id)) {
+		p.cur[id] = c // never stored: a new user
+		return c, nil
+	}
 	b, err := p.reader.User(id)
 	if err != nil {
 		return nil, fmt.Errorf("pipeline: load user state: %w", err)
@@ -520,9 +539,14 @@ func (p *Processor) commit(ctx context.Context, wait bool) error {
 		Checkpoints: map[string][]byte{},
 		Meta:        map[string][]byte{},
 	}
+	// One buffer for every dirty user's encoding: the commit owns it. If it
+	// grows, earlier slices keep pointing into the old array, still valid.
+	buf := make([]byte, 0, p.dirtyBytes)
 	for id, e := range p.cur {
 		if e.dirty {
-			c.Users[id] = e.u.AppendBinary(nil)
+			start := len(buf)
+			buf = e.u.AppendBinary(buf)
+			c.Users[id] = buf[start:len(buf):len(buf)]
 			e.dirty = false
 		}
 	}
