@@ -108,6 +108,18 @@ type Limits struct {
 	MaxName int `yaml:"max_name"`
 }
 
+// Privacy configures keyed pseudonyms for user ids (internal/privacy).
+type Privacy struct {
+	// KeyFile is a file holding the pseudonymisation key (at least 32 bytes,
+	// or 64 hex digits), readable by its owner only. Empty: user ids are
+	// stored as given, unless the environment variable TOUCHLEDGER_KEY_FILE
+	// names a key file. Default empty.
+	KeyFile string `yaml:"key_file"`
+	// KeyVersion names the key in every pseudonym ("p<version>-…"); raise it
+	// when rotating the key. Default 1.
+	KeyVersion int `yaml:"key_version"`
+}
+
 // Config is touchledger's whole configuration. Default gives the documented
 // defaults; a file only names the keys it changes. docs/configuration.md
 // lists every key.
@@ -177,6 +189,8 @@ type Config struct {
 	Store Store `yaml:"store"`
 	// Limits bound input events.
 	Limits Limits `yaml:"limits"`
+	// Privacy configures pseudonymous user ids.
+	Privacy Privacy `yaml:"privacy"`
 }
 
 // Default returns the documented defaults.
@@ -222,6 +236,7 @@ func Default() Config {
 			CommitEvents:   200_000,
 			CommitInterval: Duration(time.Second),
 		},
+		Privacy: Privacy{KeyVersion: 1},
 		Limits: Limits{MaxPayload: 64 << 10, MaxID: 128, MaxUser: 256, MaxName: 128},
 	}
 }

@@ -57,6 +57,7 @@ func TestDefault(t *testing.T) {
 			CommitEvents: 200000, CommitInterval: Duration(time.Second),
 		},
 		Limits: Limits{MaxPayload: 65536, MaxID: 128, MaxUser: 256, MaxName: 128},
+		Privacy: Privacy{KeyVersion: 1},
 	}
 	if !reflect.DeepEqual(got, want) {
 		t.Errorf("Default() =\n%+v\nwant\n%+v", got, want)

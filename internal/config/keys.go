@@ -47,6 +47,9 @@ var keyDocs = []struct{ Key, Doc string }{
 	{"limits.max_id", `Longest event id.`},
 	{"limits.max_user", `Longest user id.`},
 	{"limits.max_name", `Longest channel, campaign, action or currency; conversion actions, funnel steps, cart step and direct channel must fit in it.`},
+	{"privacy", `Keyed pseudonyms for user ids.`},
+	{"privacy.key_file", `File with the pseudonymisation key (>= 32 bytes or 64 hex digits, mode 600); empty stores raw ids unless TOUCHLEDGER_KEY_FILE is set.`},
+	{"privacy.key_version", `Version written into every pseudonym; raise it when rotating the key.`},
 }
 
 // keyDoc returns the explanation of a dotted key.

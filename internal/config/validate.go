@@ -82,6 +82,8 @@ func (c Config) Validate() error {
 		v.add("alert.target", "must be 0 (rolling baseline) or a rate between 0 and 1, got %s", number(a.Target))
 	}
 
+	v.atLeast("privacy.key_version", c.Privacy.KeyVersion, 1)
+
 	s := c.Store
 	v.resolutions(s.Resolutions)
 	if len(s.Resolutions) > 0 && s.Resolutions[0].Step > 0 && a.Interval > 0 && a.Interval%s.Resolutions[0].Step != 0 {

@@ -14,6 +14,7 @@ import (
 	"github.com/dgraph-io/ristretto/v2/z"
 
 	"github.com/touchledger/touchledger/internal/event"
+	"github.com/touchledger/touchledger/internal/privacy"
 	"github.com/touchledger/touchledger/internal/sessionize"
 	"github.com/touchledger/touchledger/internal/state"
 	"github.com/touchledger/touchledger/internal/tally"
@@ -46,6 +47,11 @@ type Config struct {
 	// before the acknowledged one cannot be read again). Replay from a file
 	// leaves it off: it re-reads the buffered lines by position.
 	PersistPending bool
+	// Pseudonyms, if set, replaces every user id by its keyed pseudonym
+	// right after decoding, before the id is used anywhere; rejected
+	// payloads are then kept only as length and hash (privacy.Redact), and
+	// buffered events are persisted re-encoded with the pseudonym.
+	Pseudonyms *privacy.Pseudonymizer
 	// OnCommit, if set, is called after each successful commit with the
 	// committed checkpoint, on the committing goroutine. Live input
 	// acknowledges its messages here.
@@ -242,10 +248,11 @@ func (p *Processor) Begin(source string) (Checkpoint, error) {
 	p.ckpt.Done = false
 	if p.cfg.PersistPending {
 		err := p.reader.Pending(source, func(pos uint64, payload []byte) error {
-			e, err := p.dec.Decode(payload)
-			if err := p.ReadmitDecoded(pos, &e, err); err != nil {
-				return err
+			e, err := p.dec.Decode(payload) // stored with its pseudonym already
+			if err != nil {
+				return fmt.Errorf("stored buffered event %d: %w", pos, err)
 			}
+			p.reorder.Readmit(&e, pos)
 			p.persisted[pos] = true
 			return nil
 		})
@@ -287,6 +294,9 @@ func (p *Processor) ReadmitDecoded(pos uint64, e *event.Event, decodeErr error) 
 	if decodeErr != nil {
 		return fmt.Errorf("pipeline: buffered input %d no longer decodes (input changed since it was read?): %w", pos, decodeErr)
 	}
+	if p.cfg.Pseudonyms != nil {
+		e.User = p.cfg.Pseudonyms.Pseudonym(e.User)
+	}
 	p.reorder.Readmit(e, pos)
 	return nil
 }
@@ -308,6 +318,9 @@ func (p *Processor) NewDecoder() *event.Decoder {
 func (p *Processor) OfferDecoded(ctx context.Context, pos uint64, payload []byte, e *event.Event, decodeErr error) error {
 	if pos+1 > p.ckpt.Next {
 		p.ckpt.Next = pos + 1
+	}
+	if decodeErr == nil && p.cfg.Pseudonyms != nil {
+		e.User = p.cfg.Pseudonyms.Pseudonym(e.User)
 	}
 	if decodeErr != nil {
 		var re *event.RejectError
@@ -336,7 +349,11 @@ func (p *Processor) OfferDecoded(ctx context.Context, pos uint64, payload []byte
 	} else {
 		p.reorder.Push(e, pos)
 		if p.cfg.PersistPending {
-			p.pendingNew[pos] = append([]byte(nil), payload...)
+			if p.cfg.Pseudonyms != nil {
+				p.pendingNew[pos] = event.AppendJSON(nil, e)
+			} else {
+				p.pendingNew[pos] = append([]byte(nil), payload...)
+			}
 		}
 		if t := e.Time.UnixNano(); t > p.lastEvent {
 			p.lastEvent = t
@@ -361,6 +378,9 @@ func (p *Processor) reject(pos uint64, r event.Reason, msg string, payload []byt
 func (p *Processor) rejectRecord(pos uint64, r event.Reason, msg string, payload []byte) error {
 	if p.rejects == nil {
 		return nil
+	}
+	if p.cfg.Pseudonyms != nil {
+		payload = privacy.Redact(payload)
 	}
 	if err := p.rejects.Reject(pos, r, msg, payload); err != nil {
 		return fmt.Errorf("pipeline: record reject: %w", err)

@@ -1,10 +1,13 @@
 package pipeline
 
 import (
+	"os"
+
 	"github.com/touchledger/touchledger/internal/alert"
 	"github.com/touchledger/touchledger/internal/config"
 	"github.com/touchledger/touchledger/internal/credit"
 	"github.com/touchledger/touchledger/internal/event"
+	"github.com/touchledger/touchledger/internal/privacy"
 	"github.com/touchledger/touchledger/internal/query"
 	"github.com/touchledger/touchledger/internal/sessionize"
 	"github.com/touchledger/touchledger/internal/state"
@@ -77,4 +80,23 @@ func QueryParams(c config.Config) query.Params {
 			Target:      c.Alert.Target,
 		},
 	}
+}
+
+// PseudonymsFrom loads the pseudonymisation key named by the configuration
+// (privacy.key_file) or, when that is empty, by the environment variable
+// privacy.KeyFileEnv. It returns nil, nil when neither is set: user ids are
+// then stored as given.
+func PseudonymsFrom(c config.Config) (*privacy.Pseudonymizer, error) {
+	path := c.Privacy.KeyFile
+	if path == "" {
+		path = os.Getenv(privacy.KeyFileEnv)
+	}
+	if path == "" {
+		return nil, nil
+	}
+	key, err := privacy.LoadKeyFile(path)
+	if err != nil {
+		return nil, err
+	}
+	return privacy.New(key, c.Privacy.KeyVersion)
 }
