@@ -237,7 +237,7 @@ func Default() Config {
 			CommitInterval: Duration(time.Second),
 		},
 		Privacy: Privacy{KeyVersion: 1},
-		Limits: Limits{MaxPayload: 64 << 10, MaxID: 128, MaxUser: 256, MaxName: 128},
+		Limits:  Limits{MaxPayload: 64 << 10, MaxID: 128, MaxUser: 256, MaxName: 128},
 	}
 }
 

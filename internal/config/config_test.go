@@ -56,7 +56,7 @@ func TestDefault(t *testing.T) {
 			CacheUsers: 100000, MemtableMiB: 64, BlockCacheMiB: 32, IndexCacheMiB: 16,
 			CommitEvents: 200000, CommitInterval: Duration(time.Second),
 		},
-		Limits: Limits{MaxPayload: 65536, MaxID: 128, MaxUser: 256, MaxName: 128},
+		Limits:  Limits{MaxPayload: 65536, MaxID: 128, MaxUser: 256, MaxName: 128},
 		Privacy: Privacy{KeyVersion: 1},
 	}
 	if !reflect.DeepEqual(got, want) {
