@@ -15,6 +15,7 @@ type Counts struct {
 	Accepted  uint64                  // applied to the state
 	Duplicate uint64                  // already accepted (same user and id within the horizon)
 	Late      uint64                  // older than the watermark
+	Erased    uint64                  // dropped because their user was erased moments before
 	Rejected  map[event.Reason]uint64 // invalid input, by reason (late excluded)
 }
 
@@ -48,7 +49,9 @@ type Checkpoint struct {
 	Counts  Counts
 }
 
-const checkpointVersion = 1
+// checkpointVersion 2 added Erased after the pending positions; version 1
+// checkpoints still decode (Erased 0).
+const checkpointVersion = 2
 
 // ErrCorruptCheckpoint is returned for an undecodable checkpoint.
 var ErrCorruptCheckpoint = errors.New("pipeline: corrupt checkpoint")
@@ -85,15 +88,17 @@ func (c Checkpoint) MarshalBinary() ([]byte, error) {
 		b = binary.AppendUvarint(b, p-prev)
 		prev = p
 	}
+	b = binary.AppendUvarint(b, c.Counts.Erased)
 	return b, nil
 }
 
 // UnmarshalBinary decodes a checkpoint.
 func (c *Checkpoint) UnmarshalBinary(b []byte) error {
 	fail := func(what string) error { return fmt.Errorf("%w: %s", ErrCorruptCheckpoint, what) }
-	if len(b) < 1 || b[0] != checkpointVersion {
+	if len(b) < 1 || (b[0] != 1 && b[0] != checkpointVersion) {
 		return fail("version")
 	}
+	version := b[0]
 	b = b[1:]
 	u := func() (uint64, bool) {
 		v, n := binary.Uvarint(b)
@@ -148,6 +153,11 @@ func (c *Checkpoint) UnmarshalBinary(b []byte) error {
 		}
 		prev += d
 		c.Pending = append(c.Pending, prev)
+	}
+	if version >= 2 {
+		if c.Counts.Erased, ok = u(); !ok {
+			return fail("erased")
+		}
 	}
 	if len(b) != 0 {
 		return fail("trailing bytes")

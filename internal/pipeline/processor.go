@@ -121,6 +121,9 @@ type Processor struct {
 
 	mu     sync.Mutex // guards status
 	status Status
+
+	forgotten map[string]int64 // user → Unix ns (wall) until which their events are dropped
+	erase     map[string]int64 // erased since the last commit (user → until)
 }
 
 // Status is the processor's committed progress, safe to read from any
@@ -183,6 +186,14 @@ func New(store *state.Store, cfg Config, rejects RejectSink, log *slog.Logger) (
 		pendingNew: make(map[uint64][]byte),
 		persisted:  make(map[uint64]bool),
 		known:      z.NewBloomFilter(float64(knownUsers), 0.01),
+		forgotten:  make(map[string]int64),
+		erase:      make(map[string]int64),
+	}
+	if err := p.reader.Forgotten(func(id string, until int64) error {
+		p.forgotten[id] = until
+		return nil
+	}); err != nil {
+		return nil, fmt.Errorf("pipeline: read erasure markers: %w", err)
 	}
 	if err := p.reader.Users(func(id string) error {
 		p.known.Add(xxhash.Sum64String(id))
@@ -399,6 +410,44 @@ func (p *Processor) release() error {
 	return ferr
 }
 
+// ForgetReport says what an erasure removed.
+type ForgetReport struct {
+	User         string    `json:"user"`          // as stored (the pseudonym when a key is configured)
+	HadState     bool      `json:"had_state"`     // session, journey and de-duplication state was deleted
+	Buffered     int       `json:"buffered"`      // events waiting in the reorder buffer that will be dropped
+	DroppedUntil time.Time `json:"dropped_until"` // events for the user arriving before this (wall clock) are dropped
+}
+
+// Forget erases a user: their stored session, journey and de-duplication
+// state is deleted in the next commit, buffered events for them are dropped
+// when released, and events for them arriving within the allowed lateness
+// plus the commit interval from now are dropped (counted as erased), so
+// late copies do not recreate the state. Aggregate counters hold no
+// identifiers and stay. id is the raw id; it is pseudonymised like input.
+func (p *Processor) Forget(ctx context.Context, id string) (ForgetReport, error) {
+	if p.cfg.Pseudonyms != nil {
+		id = p.cfg.Pseudonyms.Pseudonym(id)
+	}
+	r := ForgetReport{User: id}
+	c, err := p.user(id)
+	if err != nil {
+		return r, err
+	}
+	r.HadState = c.dirty || c.u.LastAction != 0 || len(c.u.Touches) > 0 || len(c.u.Seen) > 0
+	if c.dirty {
+		c.dirty = false
+		p.ndirty--
+	}
+	delete(p.cur, id)
+	delete(p.prev, id)
+	r.Buffered = p.reorder.CountUser(id)
+	until := time.Now().Add(p.cfg.Lateness + p.cfg.CommitInterval + time.Minute)
+	r.DroppedUntil = until.UTC()
+	p.forgotten[id] = until.UnixNano()
+	p.erase[id] = until.UnixNano()
+	return r, p.commit(ctx, true)
+}
+
 // forgetPending notes that the buffered event at pos was applied.
 func (p *Processor) forgetPending(pos uint64) {
 	if !p.cfg.PersistPending {
@@ -438,6 +487,13 @@ func (p *Processor) Tick(ctx context.Context, now time.Time) error {
 }
 
 func (p *Processor) apply(e *event.Event) error {
+	if until, ok := p.forgotten[e.User]; ok {
+		if time.Now().UnixNano() < until {
+			p.ckpt.Counts.Erased++
+			return nil
+		}
+		delete(p.forgotten, e.User)
+	}
 	c, err := p.user(e.User)
 	if err != nil {
 		return err
@@ -559,6 +615,14 @@ func (p *Processor) commit(ctx context.Context, wait bool) error {
 		Checkpoints: map[string][]byte{},
 		Meta:        map[string][]byte{},
 	}
+	for id, until := range p.erase {
+		c.Users[id] = nil // delete
+		if c.Forget == nil {
+			c.Forget = make(map[string]int64)
+		}
+		c.Forget[id] = until
+	}
+	p.erase = make(map[string]int64)
 	// One buffer for every dirty user's encoding: the commit owns it. If it
 	// grows, earlier slices keep pointing into the old array, still valid.
 	buf := make([]byte, 0, p.dirtyBytes)

@@ -177,6 +177,17 @@ func (r *Reorder) Drain(fn func(*Item)) {
 	}
 }
 
+// CountUser returns how many buffered events belong to user.
+func (r *Reorder) CountUser(user string) int {
+	n := 0
+	for _, s := range r.h {
+		if r.slab[s.i].Event.User == user {
+			n++
+		}
+	}
+	return n
+}
+
 // Len returns the number of buffered events.
 func (r *Reorder) Len() int { return len(r.h) }
 

@@ -225,6 +225,7 @@ const (
 	prefixCheckpoint = 'k'
 	prefixMeta       = 'm'
 	prefixPending    = 'p'
+	prefixForgotten  = 'f'
 )
 
 // pendingKey is 'p' | source | 0x00 | position (8 bytes, big-endian).
@@ -273,6 +274,7 @@ type Commit struct {
 	Users       map[string][]byte // user id → encoded state; nil value deletes
 	Counters    *tally.Batch      // deltas at the finest resolution, fanned out to all
 	Checkpoints map[string][]byte // source → encoded checkpoint
+	Forget      map[string]int64  // user id → Unix ns until which events for the user are dropped (kept with a TTL)
 	Meta        map[string][]byte // name → value
 }
 
@@ -331,6 +333,16 @@ func (s *Store) Commit(ctx context.Context, c *Commit) (CommitStats, error) {
 	for src, v := range c.Checkpoints {
 		if err := set(checkpointKey(src), v); err != nil {
 			return st, err
+		}
+	}
+	for id, until := range c.Forget {
+		e := badger.NewEntry(append([]byte{prefixForgotten}, id...), binary.AppendVarint(nil, until))
+		if ttl := time.Until(time.Unix(0, until)); ttl > 0 {
+			e = e.WithTTL(ttl + time.Minute)
+		}
+		st.Entries++
+		if err := txn.SetEntry(e); err != nil {
+			return st, fmt.Errorf("state: set erasure marker: %w", err)
 		}
 	}
 	for name, v := range c.Meta {
@@ -537,6 +549,32 @@ func (r *Reader) Pending(source string, fn func(pos uint64, payload []byte) erro
 			return err
 		}
 		if err := fn(binary.BigEndian.Uint64(k[len(prefix):]), v); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// Forgotten calls fn for every erasure marker still alive: a user erased
+// recently, with the Unix ns time until which their events are dropped.
+func (r *Reader) Forgotten(fn func(id string, until int64) error) error {
+	opts := badger.DefaultIteratorOptions
+	opts.Prefix = []byte{prefixForgotten}
+	it := r.txn.NewIterator(opts)
+	defer it.Close()
+	for it.Rewind(); it.Valid(); it.Next() {
+		var until int64
+		if err := it.Item().Value(func(v []byte) error {
+			var n int
+			until, n = binary.Varint(v)
+			if n <= 0 {
+				return errors.New("state: corrupt erasure marker")
+			}
+			return nil
+		}); err != nil {
+			return err
+		}
+		if err := fn(string(it.Item().Key()[1:]), until); err != nil {
 			return err
 		}
 	}
