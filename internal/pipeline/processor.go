@@ -577,7 +577,34 @@ func (p *Processor) Finish(ctx context.Context, drain bool) error {
 	if err := p.commit(ctx, true); err != nil {
 		return err
 	}
+	if drain {
+		if _, err := p.Prune(ctx); err != nil {
+			return err
+		}
+	}
 	return nil
+}
+
+// Prune deletes counter buckets older than their retention, measured back
+// from the largest event time seen (state.Store.Prune). Replay runs it at the
+// end; a live worker runs it on a schedule.
+func (p *Processor) Prune(ctx context.Context) (state.PruneReport, error) {
+	if p.inflight != nil {
+		if err := <-p.inflight; err != nil {
+			p.inflight = nil
+			return state.PruneReport{}, err
+		}
+		p.inflight = nil
+	}
+	latest := p.reorder.MaxSeen()
+	if latest == minInt64 {
+		return state.PruneReport{}, nil
+	}
+	rep, err := p.store.Prune(ctx, latest)
+	if err == nil && rep.Deleted > 0 {
+		p.log.Info("pruned expired buckets", "keys", rep.Deleted)
+	}
+	return rep, err
 }
 
 // Close waits for an in-flight commit and releases the snapshot.

@@ -640,3 +640,95 @@ func (r *Reader) Watermark() (maxSeen, floor int64, ok bool, err error) {
 	}
 	return maxSeen, floor, true, nil
 }
+
+// PruneReport says what Prune removed.
+type PruneReport struct {
+	Deleted int // counter keys deleted
+}
+
+// Prune deletes the counter buckets that are older than their resolution's
+// retention, measured back from latest (the largest event time seen, Unix
+// ns): a bucket of resolution r goes when its start is before latest −
+// retention(r). Queries already ignore such buckets, so pruning changes no
+// answer; it frees the disk (after compaction and value-log GC). It deletes
+// in transactions of bounded size and may be run at any time, repeatedly.
+func (s *Store) Prune(ctx context.Context, latest int64) (PruneReport, error) {
+	var rep PruneReport
+	for ri, r := range s.opt.Resolutions {
+		if r.Retention <= 0 {
+			continue
+		}
+		cut := latest/1e9 - int64(r.Retention/time.Second)
+		for _, f := range tally.Families {
+			for {
+				if err := ctx.Err(); err != nil {
+					return rep, err
+				}
+				n, err := s.deleteBefore(ri, f, cut, int(s.db.MaxBatchCount()/2))
+				rep.Deleted += n
+				if err != nil {
+					return rep, err
+				}
+				if n == 0 {
+					break
+				}
+			}
+		}
+	}
+	return rep, nil
+}
+
+// deleteBefore deletes up to max counter keys of (res, f) with bucket start
+// before cut, in one transaction.
+func (s *Store) deleteBefore(res int, f tally.Family, cut int64, max int) (int, error) {
+	var keys [][]byte
+	err := s.db.View(func(txn *badger.Txn) error {
+		opts := badger.DefaultIteratorOptions
+		opts.PrefetchValues = false
+		prefix := []byte{prefixCounter, byte(res), byte(f)}
+		opts.Prefix = prefix
+		it := txn.NewIterator(opts)
+		defer it.Close()
+		end := counterKey(res, f, cut, 0)
+		for it.Rewind(); it.ValidForPrefix(prefix) && len(keys) < max; it.Next() {
+			k := it.Item().KeyCopy(nil)
+			if string(k) >= string(end) {
+				break
+			}
+			keys = append(keys, k)
+		}
+		return nil
+	})
+	if err != nil || len(keys) == 0 {
+		return 0, err
+	}
+	err = s.db.Update(func(txn *badger.Txn) error {
+		for _, k := range keys {
+			if err := txn.Delete(k); err != nil {
+				return err
+			}
+		}
+		return nil
+	})
+	if err != nil {
+		return 0, fmt.Errorf("state: prune: %w", err)
+	}
+	return len(keys), nil
+}
+
+// ReclaimSpace flattens the LSM tree and runs value-log GC until it finds
+// nothing to rewrite, so deleted data leaves the disk. It is slow: run it on
+// a schedule, not per commit.
+func (s *Store) ReclaimSpace() error {
+	if err := s.db.Flatten(1); err != nil {
+		return fmt.Errorf("state: flatten: %w", err)
+	}
+	for {
+		if err := s.db.RunValueLogGC(0.5); err != nil {
+			if errors.Is(err, badger.ErrNoRewrite) || errors.Is(err, badger.ErrRejected) {
+				return nil
+			}
+			return fmt.Errorf("state: value-log gc: %w", err)
+		}
+	}
+}

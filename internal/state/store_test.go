@@ -64,3 +64,48 @@ func TestOtherResolutionsRefused(t *testing.T) {
 		t.Fatal("opened with other resolutions")
 	}
 }
+
+// TestPrune (issue 6): with a short retention, buckets older than it are
+// deleted; younger ones and the forever-kept resolution stay.
+func TestPrune(t *testing.T) {
+	ctx := context.Background()
+	o := DefaultOptions(t.TempDir())
+	o.Resolutions[0].Retention = 24 * time.Hour // 5m kept one day
+	o.Resolutions[1].Retention = 48 * time.Hour // hours kept two days
+	s, err := Open(ctx, o)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer s.Close()
+	base := time.Date(2026, 10, 1, 0, 0, 0, 0, time.UTC)
+	b := tally.NewBatch(300)
+	for d := 0; d < 5; d++ {
+		b.Add(tally.Totals, base.Add(time.Duration(d)*24*time.Hour).UnixNano(), "", tally.Vec{1, 0, 0})
+	}
+	if _, err := s.Commit(ctx, &Commit{Counters: b}); err != nil {
+		t.Fatal(err)
+	}
+	latest := base.Add(4*24*time.Hour + time.Hour).UnixNano()
+	rep, err := s.Prune(ctx, latest)
+	if err != nil {
+		t.Fatal(err)
+	}
+	// 5m buckets at days 0..3 are older than one day before latest (4 keys);
+	// hour buckets at days 0..2 are older than two days (3 keys).
+	if rep.Deleted != 7 {
+		t.Errorf("deleted %d keys, want 7", rep.Deleted)
+	}
+	r := s.NewReader()
+	defer r.Discard()
+	count := func(res int) int {
+		n := 0
+		r.Buckets(res, tally.Totals, 0, latest/1e9+1, func(int64, tally.Table) error { n++; return nil })
+		return n
+	}
+	if got := []int{count(0), count(1), count(2)}; got[0] != 1 || got[1] != 2 || got[2] != 5 {
+		t.Errorf("buckets left per resolution = %v, want [1 2 5]", got)
+	}
+	if err := s.ReclaimSpace(); err != nil {
+		t.Fatal(err)
+	}
+}
