@@ -97,6 +97,29 @@ var ErrLocked = errors.New("state: data directory is in use by another process (
 
 // Open opens (creating if needed) the store in o.Dir.
 func Open(ctx context.Context, o Options) (*Store, error) {
+	s, err := openRaw(o)
+	if err != nil {
+		return nil, err
+	}
+	if err := s.checkFormat(); err != nil {
+		s.db.Close()
+		return nil, err
+	}
+	r := s.NewReader()
+	defer r.Discard()
+	b, err := r.Meta(metaSeq)
+	if err != nil {
+		s.db.Close()
+		return nil, err
+	}
+	if len(b) == 8 {
+		s.seq = binary.BigEndian.Uint64(b)
+	}
+	return s, nil
+}
+
+// openRaw opens the Badger directory with our options, without checks.
+func openRaw(o Options) (*Store, error) {
 	if err := o.Validate(); err != nil {
 		return nil, err
 	}
@@ -133,22 +156,7 @@ func Open(ctx context.Context, o Options) (*Store, error) {
 		}
 		return nil, fmt.Errorf("state: open %s: %w", o.Dir, err)
 	}
-	s := &Store{db: db, opt: o, deltas: make(map[blobID]int)}
-	if err := s.checkFormat(); err != nil {
-		db.Close()
-		return nil, err
-	}
-	r := s.NewReader()
-	defer r.Discard()
-	b, err := r.Meta(metaSeq)
-	if err != nil {
-		db.Close()
-		return nil, err
-	}
-	if len(b) == 8 {
-		s.seq = binary.BigEndian.Uint64(b)
-	}
-	return s, nil
+	return &Store{db: db, opt: o, deltas: make(map[blobID]int)}, nil
 }
 
 func isLockErr(err error) bool {
