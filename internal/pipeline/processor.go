@@ -257,6 +257,16 @@ func (p *Processor) Begin(source string) (Checkpoint, error) {
 	cp := p.ckpt
 	cp.Pending = append([]uint64(nil), p.ckpt.Pending...)
 	p.ckpt.Done = false
+	// The restored progress is the committed status until the next commit.
+	p.mu.Lock()
+	p.status.Source, p.status.Counts, p.status.Next = source, p.ckpt.Counts.clone(), p.ckpt.Next
+	if wm := p.reorder.Watermark(); wm != minInt64 {
+		p.status.Watermark = time.Unix(0, wm).UTC()
+	}
+	if latest := p.reorder.MaxSeen(); latest != minInt64 {
+		p.status.LatestEvent = time.Unix(0, latest).UTC()
+	}
+	p.mu.Unlock()
 	if p.cfg.PersistPending {
 		err := p.reader.Pending(source, func(pos uint64, payload []byte) error {
 			e, err := p.dec.Decode(payload) // stored with its pseudonym already
