@@ -129,7 +129,8 @@ func TestClearErrors(t *testing.T) {
 		{[]string{"credit", "--data", dir, "--model", "linear", "--last", "7 days"}, 2, "--last"},
 		{[]string{"credit", "--data", empty, "--model", "linear"}, 1, "not a touchledger data directory"},
 		{[]string{"credit", "--data", filepath.Join(empty, "nope"), "--model", "linear"}, 1, "no such file"},
-		{[]string{"credit", "--model", "linear"}, 2, "--data is required"},
+		{[]string{"credit", "--model", "linear"}, 2, "--data DIR (a stopped worker's directory) or --nats URL (the running workers) is required"},
+		{[]string{"credit", "--data", dir, "--nats", "nats://127.0.0.1:4222", "--model", "linear"}, 2, "--data and --nats exclude each other"},
 		{[]string{"frobnicate"}, 2, "unknown command"},
 		{[]string{"paths", "--data", dir}, 2, "--level is required"},
 	}

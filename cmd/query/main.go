@@ -1,12 +1,13 @@
-// Command query answers questions from a touchledger data directory.
+// Command query answers questions from a touchledger data directory or, with
+// --nats, from every live worker (their tables added, then the models run).
 //
-//	query credit      --data DIR --model NAME [--order K] [window] [--by channel|campaign] [--format table|json|csv]
-//	query shift       --data DIR --model NAME [--days 14]
-//	query transitions --data DIR --level channel|action [--order K]
-//	query paths       --data DIR --level action|channel [--top N]
-//	query funnel      --data DIR
-//	query alerts      --data DIR [--points]
-//	query status      --data DIR
+//	query credit      (--data DIR | --nats URL) --model NAME [--order K] [window] [--by channel|campaign] [--format table|json|csv]
+//	query shift       (--data DIR | --nats URL) --model NAME [--days 14]
+//	query transitions (--data DIR | --nats URL) --level channel|action [--order K]
+//	query paths       (--data DIR | --nats URL) --level action|channel [--top N]
+//	query funnel      (--data DIR | --nats URL)
+//	query alerts      (--data DIR | --nats URL) [--points]
+//	query status      (--data DIR | --nats URL)
 //
 // See `query --help`.
 package main
@@ -17,28 +18,42 @@ import (
 	"flag"
 	"fmt"
 	"io"
+	"net/url"
 	"os"
 	"path/filepath"
 	"strings"
 	"time"
 
+	"github.com/nats-io/nats.go"
+
 	"github.com/touchledger/touchledger/internal/config"
 	"github.com/touchledger/touchledger/internal/credit"
 	"github.com/touchledger/touchledger/internal/pipeline"
 	"github.com/touchledger/touchledger/internal/query"
+	"github.com/touchledger/touchledger/internal/remote"
 	"github.com/touchledger/touchledger/internal/state"
 )
 
-const usage = `query: read channel credit and path statistics from a touchledger data directory.
+const usage = `query: read channel credit and path statistics from a touchledger data
+directory, or from every live worker over NATS.
 
 Usage:
-  query credit      --data DIR --model NAME [--order K] [window] [--by channel|campaign] [--format F] [--chart]
-  query shift       --data DIR --model NAME [--days N] [--format F] [--chart]
-  query transitions --data DIR --level channel|action [--order K] [window] [--format F]
-  query paths       --data DIR --level action|channel [--top N] [window] [--format F]
-  query funnel      --data DIR [window] [--format F]
-  query alerts      --data DIR [window] [--points] [--format F]
-  query status      --data DIR [window] [--format F]
+  query credit      SOURCE --model NAME [--order K] [window] [--by channel|campaign] [--format F] [--chart]
+  query shift       SOURCE --model NAME [--days N] [--format F] [--chart]
+  query transitions SOURCE --level channel|action [--order K] [window] [--format F]
+  query paths       SOURCE --level action|channel [--top N] [window] [--format F]
+  query funnel      SOURCE [window] [--format F]
+  query alerts      SOURCE [window] [--points] [--format F]
+  query status      SOURCE [window] [--format F]
+
+SOURCE is exactly one of:
+  --data DIR         the data directory of a stopped worker
+  --nats URL         ask every running worker (comma-separated URLs for a cluster);
+                     options --nats-creds FILE, --nats-user U --nats-password P,
+                     --nats-token T, --timeout 2s, --partitions 16, --prefix tl.
+                     Workers' tables are added, then the models are computed;
+                     partitions whose worker did not answer within --timeout
+                     are named: "partial answer: partitions 8-15 did not answer".
 
 credit       conversions and value credited to each channel by a model
 shift        each channel's credit per day and the change from the day before
@@ -99,6 +114,14 @@ func run(args []string, stdout, stderr io.Writer) int {
 		level      = fs.String("level", "", "transitions and paths: `channel` (journeys) or action (sessions)")
 		top        = fs.Int("top", 10, "paths: how many paths to show")
 		points     = fs.Bool("points", false, "alerts: also show every interval of the chart")
+		natsURL    = fs.String("nats", "", "NATS server `URL` (comma-separated for a cluster): ask the running workers")
+		natsCreds  = fs.String("nats-creds", "", "NATS credentials `file`")
+		natsUser   = fs.String("nats-user", "", "NATS `user` name (with --nats-password)")
+		natsPass   = fs.String("nats-password", "", "NATS `password`")
+		natsToken  = fs.String("nats-token", "", "NATS authentication `token`")
+		timeout    = fs.Duration("timeout", remote.DefaultTimeout, "with --nats: how long to wait for workers and for each answer")
+		partitions = fs.Int("partitions", remote.DefaultPartitions, "with --nats: number of partitions in all")
+		prefix     = fs.String("prefix", remote.DefaultPrefix, "with --nats: subject `prefix` of the workers")
 	)
 	switch cmd {
 	case "credit", "shift", "status", "transitions", "paths", "funnel", "alerts":
@@ -124,8 +147,11 @@ func run(args []string, stdout, stderr io.Writer) int {
 	if err != nil {
 		return fail(2, err)
 	}
-	if *dataDir == "" {
-		return fail(2, errors.New("--data is required"))
+	switch {
+	case *dataDir == "" && *natsURL == "":
+		return fail(2, errors.New("--data DIR (a stopped worker's directory) or --nats URL (the running workers) is required"))
+	case *dataDir != "" && *natsURL != "":
+		return fail(2, errors.New("--data and --nats exclude each other: give one"))
 	}
 	if (cmd == "credit" || cmd == "shift") && *model == "" {
 		return fail(2, fmt.Errorf("--model is required (%s)", modelNames()))
@@ -144,31 +170,71 @@ func run(args []string, stdout, stderr io.Writer) int {
 			return fail(2, err)
 		}
 	}
-	if _, err := os.Stat(*dataDir); err != nil {
-		return fail(1, fmt.Errorf("data directory: %w", err))
-	}
-	if _, err := os.Stat(filepath.Join(*dataDir, "MANIFEST")); err != nil {
-		return fail(1, fmt.Errorf("%s is not a touchledger data directory (no store in it; run ingest first)", *dataDir))
-	}
-	st, err := state.Open(context.Background(), pipeline.StoreOptions(*dataDir, cfg))
-	if err != nil {
-		return fail(1, err)
-	}
-	defer st.Close()
 	if (cmd == "transitions" || cmd == "paths") && *level == "" {
 		return fail(2, errors.New("--level is required: channel or action"))
 	}
-	q, err := query.NewQuerier(st, pipeline.QueryParams(cfg))
-	if err != nil {
-		return fail(1, err)
+	var q *query.Querier
+	var missing []int
+	if *dataDir != "" {
+		if _, err := os.Stat(*dataDir); err != nil {
+			return fail(1, fmt.Errorf("data directory: %w", err))
+		}
+		if _, err := os.Stat(filepath.Join(*dataDir, "MANIFEST")); err != nil {
+			return fail(1, fmt.Errorf("%s is not a touchledger data directory (no store in it; run ingest first)", *dataDir))
+		}
+		st, err := state.Open(context.Background(), pipeline.StoreOptions(*dataDir, cfg))
+		if err != nil {
+			return fail(1, err)
+		}
+		defer st.Close()
+		if q, err = query.NewQuerier(st, pipeline.QueryParams(cfg)); err != nil {
+			return fail(1, err)
+		}
+	} else {
+		if *timeout <= 0 {
+			return fail(2, fmt.Errorf("--timeout must be positive, got %v", *timeout))
+		}
+		if *partitions < 1 {
+			return fail(2, fmt.Errorf("--partitions must be at least 1, got %d", *partitions))
+		}
+		opts, err := natsOptions(*natsCreds, *natsUser, *natsPass, *natsToken, *timeout)
+		if err != nil {
+			return fail(2, err)
+		}
+		nc, err := nats.Connect(*natsURL, opts...)
+		if err != nil {
+			return fail(1, fmt.Errorf("connect to NATS at %s: %w", redact(*natsURL), err))
+		}
+		defer nc.Close()
+		res := pipeline.StoreOptions("", cfg).Resolutions
+		src, err := remote.NewSource(nc, remote.Options{Prefix: *prefix, Partitions: *partitions, Timeout: *timeout, Resolutions: res})
+		if err != nil {
+			return fail(1, err)
+		}
+		missing = src.Missing()
+		q, err = query.NewQuerierFrom(src, res, pipeline.QueryParams(cfg))
+		if errors.Is(err, query.ErrNoData) {
+			err = fmt.Errorf("no data: the workers that answered have committed no events yet (%s)", strings.TrimPrefix(query.PartialWarning(missing), "partial answer: "))
+			if missing == nil {
+				err = errors.New("no data: the workers have committed no events yet")
+			}
+		}
+		if err != nil {
+			return fail(1, err)
+		}
 	}
 	defer q.Close()
+	if w := query.PartialWarning(missing); w != "" && f == query.JSON {
+		// JSON carries missing_partitions; say it to people too.
+		fmt.Fprintf(stderr, "query %s: %s\n", cmd, w)
+	}
 	switch cmd {
 	case "credit":
 		a, err := q.Credit(*model, grp, *order, span)
 		if err != nil {
 			return fail(1, err)
 		}
+		a.MissingPartitions = missing
 		err = query.WriteCredit(stdout, a, f, *chart)
 		if err != nil {
 			return fail(1, err)
@@ -178,6 +244,7 @@ func run(args []string, stdout, stderr io.Writer) int {
 		if err != nil {
 			return fail(1, err)
 		}
+		a.MissingPartitions = missing
 		if err := query.WriteShift(stdout, a, f, *chart); err != nil {
 			return fail(1, err)
 		}
@@ -186,6 +253,7 @@ func run(args []string, stdout, stderr io.Writer) int {
 		if err != nil {
 			return fail(1, err)
 		}
+		a.MissingPartitions = missing
 		if err := query.WriteTransitions(stdout, a, f); err != nil {
 			return fail(1, err)
 		}
@@ -194,6 +262,7 @@ func run(args []string, stdout, stderr io.Writer) int {
 		if err != nil {
 			return fail(1, err)
 		}
+		a.MissingPartitions = missing
 		if err := query.WritePaths(stdout, a, f); err != nil {
 			return fail(1, err)
 		}
@@ -202,6 +271,7 @@ func run(args []string, stdout, stderr io.Writer) int {
 		if err != nil {
 			return fail(1, err)
 		}
+		a.MissingPartitions = missing
 		if err := query.WriteFunnel(stdout, a, f); err != nil {
 			return fail(1, err)
 		}
@@ -210,6 +280,7 @@ func run(args []string, stdout, stderr io.Writer) int {
 		if err != nil {
 			return fail(1, err)
 		}
+		a.MissingPartitions = missing
 		if err := query.WriteAlerts(stdout, a, f); err != nil {
 			return fail(1, err)
 		}
@@ -218,11 +289,48 @@ func run(args []string, stdout, stderr io.Writer) int {
 		if err != nil {
 			return fail(1, err)
 		}
+		s.MissingPartitions = missing
 		if err := query.WriteStatus(stdout, s, p, f); err != nil {
 			return fail(1, err)
 		}
 	}
 	return 0
+}
+
+// natsOptions builds the connection options from the authentication flags.
+func natsOptions(creds, user, password, token string, timeout time.Duration) ([]nats.Option, error) {
+	opts := []nats.Option{nats.Name("touchledger query"), nats.Timeout(timeout), nats.MaxReconnects(0)}
+	auth := 0
+	if creds != "" {
+		auth++
+		opts = append(opts, nats.UserCredentials(creds))
+	}
+	if user != "" || password != "" {
+		if user == "" || password == "" {
+			return nil, errors.New("--nats-user and --nats-password go together")
+		}
+		auth++
+		opts = append(opts, nats.UserInfo(user, password))
+	}
+	if token != "" {
+		auth++
+		opts = append(opts, nats.Token(token))
+	}
+	if auth > 1 {
+		return nil, errors.New("give one way to authenticate: --nats-creds, --nats-user/--nats-password or --nats-token")
+	}
+	return opts, nil
+}
+
+// redact hides passwords in server URLs before they are printed.
+func redact(urls string) string {
+	parts := strings.Split(urls, ",")
+	for i, p := range parts {
+		if u, err := url.Parse(strings.TrimSpace(p)); err == nil && u.User != nil {
+			parts[i] = u.Redacted()
+		}
+	}
+	return strings.Join(parts, ",")
 }
 
 // parseSpan reads the window flags.

@@ -23,6 +23,9 @@ type CreditAnswer struct {
 	Value       float64         `json:"value"`
 	Channels    []ChannelCredit `json:"channels"`
 	Notes       []string        `json:"notes,omitempty"`
+	// MissingPartitions lists the partitions whose workers did not answer:
+	// when set, the numbers leave those partitions out.
+	MissingPartitions []int `json:"missing_partitions,omitempty"`
 }
 
 // ChannelCredit is one row of a credit answer.

@@ -66,6 +66,9 @@ func Bar(frac float64, width int) string {
 
 // WriteCredit writes a credit answer. chart adds a bar per row (table only).
 func WriteCredit(w io.Writer, a CreditAnswer, f Format, chart bool) error {
+	if err := writePartial(w, a.MissingPartitions, f); err != nil {
+		return err
+	}
 	switch f {
 	case JSON:
 		return WriteJSON(w, a)
@@ -153,6 +156,9 @@ func deref(s *string) string {
 
 // WriteShift writes a shift answer.
 func WriteShift(w io.Writer, a ShiftAnswer, f Format, chart bool) error {
+	if err := writePartial(w, a.MissingPartitions, f); err != nil {
+		return err
+	}
 	switch f {
 	case JSON:
 		return WriteJSON(w, a)
@@ -223,6 +229,9 @@ func spark(x float64) rune {
 
 // WriteStatus writes a status summary.
 func WriteStatus(w io.Writer, s Summary, p Plan, f Format) error {
+	if err := writePartial(w, s.MissingPartitions, f); err != nil {
+		return err
+	}
 	type out struct {
 		From string `json:"from"`
 		To   string `json:"to"`
@@ -258,6 +267,9 @@ func fi(x int64) string   { return strconv.FormatInt(x, 10) }
 
 // WriteTransitions writes a transitions answer.
 func WriteTransitions(w io.Writer, a TransitionsAnswer, f Format) error {
+	if err := writePartial(w, a.MissingPartitions, f); err != nil {
+		return err
+	}
 	switch f {
 	case JSON:
 		return WriteJSON(w, a)
@@ -288,6 +300,9 @@ func f4(x float64) string { return strconv.FormatFloat(x, 'f', 4, 64) }
 
 // WritePaths writes a paths answer.
 func WritePaths(w io.Writer, a PathsAnswer, f Format) error {
+	if err := writePartial(w, a.MissingPartitions, f); err != nil {
+		return err
+	}
 	switch f {
 	case JSON:
 		return WriteJSON(w, a)
@@ -313,6 +328,9 @@ func WritePaths(w io.Writer, a PathsAnswer, f Format) error {
 
 // WriteFunnel writes a funnel answer.
 func WriteFunnel(w io.Writer, a FunnelAnswer, f Format) error {
+	if err := writePartial(w, a.MissingPartitions, f); err != nil {
+		return err
+	}
 	switch f {
 	case JSON:
 		return WriteJSON(w, a)
@@ -349,6 +367,9 @@ func WriteFunnel(w io.Writer, a FunnelAnswer, f Format) error {
 
 // WriteAlerts writes an alerts answer.
 func WriteAlerts(w io.Writer, a AlertsAnswer, f Format) error {
+	if err := writePartial(w, a.MissingPartitions, f); err != nil {
+		return err
+	}
 	switch f {
 	case JSON:
 		return WriteJSON(w, a)

@@ -219,11 +219,12 @@ func DataDrivenCredit(model string, order int, plan Plan, p Params, totals, path
 
 // TransitionsAnswer is the answer of `query transitions`.
 type TransitionsAnswer struct {
-	Level       string       `json:"level"`
-	Order       int          `json:"order,omitempty"`
-	From        string       `json:"from"`
-	To          string       `json:"to"`
-	Transitions []Transition `json:"transitions"`
+	Level             string       `json:"level"`
+	Order             int          `json:"order,omitempty"`
+	From              string       `json:"from"`
+	To                string       `json:"to"`
+	Transitions       []Transition `json:"transitions"`
+	MissingPartitions []int        `json:"missing_partitions,omitempty"` // partitions that did not answer
 }
 
 // Transition is one row: a count and its share of the From row.
@@ -329,11 +330,12 @@ func Transitions(level string, order int, collapse bool, plan Plan, paths tally.
 
 // PathsAnswer is the answer of `query paths`.
 type PathsAnswer struct {
-	Level string     `json:"level"`
-	From  string     `json:"from"`
-	To    string     `json:"to"`
-	Total int64      `json:"total"` // sessions or journeys in the window
-	Paths []PathStat `json:"paths"`
+	Level             string     `json:"level"`
+	From              string     `json:"from"`
+	To                string     `json:"to"`
+	Total             int64      `json:"total"` // sessions or journeys in the window
+	Paths             []PathStat `json:"paths"`
+	MissingPartitions []int      `json:"missing_partitions,omitempty"` // partitions that did not answer
 }
 
 // PathStat is one path with its count and conversion rate.
@@ -413,7 +415,8 @@ type FunnelAnswer struct {
 	Steps             []FunnelStep `json:"steps"`
 	CartSessions      int64        `json:"cart_sessions"`
 	CartAbandonment   float64      `json:"cart_abandonment"`
-	OverallConversion float64      `json:"overall_conversion"` // last step / first step
+	OverallConversion float64      `json:"overall_conversion"`           // last step / first step
+	MissingPartitions []int        `json:"missing_partitions,omitempty"` // partitions that did not answer
 }
 
 // FunnelStep is one step of a closed funnel: sessions that reached it in
@@ -463,12 +466,13 @@ func Funnel(steps []string, plan Plan, t tally.Table) FunnelAnswer {
 
 // AlertsAnswer is the answer of `query alerts`.
 type AlertsAnswer struct {
-	Name     string        `json:"name"` // what is watched, e.g. checkout_abandonment
-	From     string        `json:"from"`
-	To       string        `json:"to"`
-	Interval string        `json:"interval"`
-	Alerts   []AlertRecord `json:"alerts"`
-	Points   []AlertPoint  `json:"points,omitempty"`
+	Name              string        `json:"name"` // what is watched, e.g. checkout_abandonment
+	From              string        `json:"from"`
+	To                string        `json:"to"`
+	Interval          string        `json:"interval"`
+	Alerts            []AlertRecord `json:"alerts"`
+	Points            []AlertPoint  `json:"points,omitempty"`
+	MissingPartitions []int         `json:"missing_partitions,omitempty"` // partitions that did not answer
 }
 
 // AlertRecord is one abandonment alert.

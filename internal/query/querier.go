@@ -344,9 +344,10 @@ func (q *Querier) Alerts(s Span, withPoints bool) (AlertsAnswer, error) {
 
 // ShiftAnswer is the answer of `query shift`: credit per channel per day.
 type ShiftAnswer struct {
-	Model    string     `json:"model"`
-	Days     []ShiftDay `json:"days"`
-	Channels []string   `json:"channels"`
+	Model             string     `json:"model"`
+	Days              []ShiftDay `json:"days"`
+	Channels          []string   `json:"channels"`
+	MissingPartitions []int      `json:"missing_partitions,omitempty"` // partitions that did not answer
 }
 
 // ShiftDay is one day of a shift answer.
@@ -419,12 +420,13 @@ func (q *Querier) Shift(model string, order int, days int) (ShiftAnswer, error) 
 
 // Summary is what a data directory holds, for `query status`.
 type Summary struct {
-	Latest      string  `json:"latest_event"`
-	Conversions int64   `json:"conversions"`
-	Value       float64 `json:"value"`
-	Sessions    int64   `json:"sessions"`
-	Actions     int64   `json:"actions"`
-	Touches     int64   `json:"touches"`
+	Latest            string  `json:"latest_event"`
+	Conversions       int64   `json:"conversions"`
+	Value             float64 `json:"value"`
+	Sessions          int64   `json:"sessions"`
+	Actions           int64   `json:"actions"`
+	Touches           int64   `json:"touches"`
+	MissingPartitions []int   `json:"missing_partitions,omitempty"` // partitions that did not answer
 }
 
 // Status sums the activity over a span.

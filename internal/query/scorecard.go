@@ -6,6 +6,7 @@ import (
 	"io"
 	"math"
 	"os"
+	"slices"
 	"sort"
 	"strconv"
 	"text/tabwriter"
@@ -43,6 +44,8 @@ type ScorecardAnswer struct {
 	Channels []string     `json:"channels"`
 	True     []float64    `json:"true_share"` // per channel: incremental conversions / incremental total
 	Models   []ModelScore `json:"models"`     // best (smallest error) first
+	// MissingPartitions: partitions that did not answer (from the credit answers).
+	MissingPartitions []int `json:"missing_partitions,omitempty"`
 }
 
 // ModelScore is one model's shares and its distance from the truth.
@@ -70,6 +73,11 @@ func Scorecard(answers []CreditAnswer, truth Truth) ScorecardAnswer {
 		if a.From == "" {
 			a.From, a.To = ans.From, ans.To
 		}
+		for _, p := range ans.MissingPartitions {
+			if !slices.Contains(a.MissingPartitions, p) {
+				a.MissingPartitions = append(a.MissingPartitions, p)
+			}
+		}
 		by := map[string]float64{}
 		var sum float64
 		for _, c := range ans.Channels {
@@ -95,6 +103,9 @@ func Scorecard(answers []CreditAnswer, truth Truth) ScorecardAnswer {
 
 // WriteScorecard writes a scorecard.
 func WriteScorecard(w io.Writer, a ScorecardAnswer, f Format) error {
+	if err := writePartial(w, a.MissingPartitions, f); err != nil {
+		return err
+	}
 	switch f {
 	case JSON:
 		return WriteJSON(w, a)
