@@ -200,11 +200,18 @@ func DataDrivenCredit(model string, order int, plan Plan, p Params, totals, path
 		c.Conversions += float64(noPath[1])
 		c.Value += float64(noPath[2]) / event.ValueScale
 	}
-	var sum float64
-	for _, c := range rows {
-		sum += c.Conversions
+	// Sum in a fixed order so repeated answers are identical to the bit.
+	names := make([]string, 0, len(rows))
+	for name := range rows {
+		names = append(names, name)
 	}
-	for _, c := range rows {
+	sort.Strings(names)
+	var sum float64
+	for _, name := range names {
+		sum += rows[name].Conversions
+	}
+	for _, name := range names {
+		c := rows[name]
 		if sum != 0 {
 			c.Share = c.Conversions / sum
 		}
