@@ -144,3 +144,36 @@ func TestClearErrors(t *testing.T) {
 		t.Errorf("querying an empty directory wrote %d files into it", len(entries))
 	}
 }
+
+// TestScorecardAndForget runs the scorecard against the demo's truth file
+// and erases a user from a stopped worker's directory.
+func TestScorecardAndForget(t *testing.T) {
+	dir := replayDemo(t)
+	truth := filepath.Join(t.TempDir(), "truth.json")
+	if err := os.WriteFile(truth, []byte(`{"incremental_total": 10, "channels": {"social_ads": 6, "search_ads": 4}}`), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	code, out, errOut := runCLI("scorecard", "--data", dir, "--truth", truth, "--last", "7d", "--format", "json")
+	if code != 0 {
+		t.Fatalf("scorecard: %s", errOut)
+	}
+	var sc struct {
+		Channels []string
+		Models   []struct {
+			Model string
+			Error float64
+		}
+	}
+	if err := json.Unmarshal([]byte(out), &sc); err != nil || len(sc.Models) != 8 || len(sc.Channels) != 2 {
+		t.Fatalf("scorecard answer %s (%v)", out, err)
+	}
+	for i := 1; i < len(sc.Models); i++ {
+		if sc.Models[i].Error < sc.Models[i-1].Error {
+			t.Errorf("models not ordered by error: %+v", sc.Models)
+		}
+	}
+	code, out, errOut = runCLI("forget", "--data", dir, "--user", "v0000001")
+	if code != 0 || !strings.Contains(out, "forgot v0000001") {
+		t.Errorf("forget: exit %d, %q %q", code, out, errOut)
+	}
+}

@@ -63,6 +63,10 @@ paths        the most frequent whole session or journey paths, with conversion r
 funnel       sessions reaching each funnel step in order, and where they drop out
 alerts       cart-abandonment spikes found by an EWMA control chart
 status       what the data directory holds
+scorecard    each model's credit next to a simulated world's true incremental
+             conversions (demo --truth FILE), with the distance between them
+forget       erase a person: their stored session, journey and de-duplication
+             state (aggregate counters hold no identifiers and stay)
 
 Window (over conversion time, [from, to)):
   --last 7d          the 7 days up to the latest event seen (default 30d)
@@ -122,9 +126,11 @@ func run(args []string, stdout, stderr io.Writer) int {
 		timeout    = fs.Duration("timeout", remote.DefaultTimeout, "with --nats: how long to wait for workers and for each answer")
 		partitions = fs.Int("partitions", remote.DefaultPartitions, "with --nats: number of partitions in all")
 		prefix     = fs.String("prefix", remote.DefaultPrefix, "with --nats: subject `prefix` of the workers")
+		truthPath  = fs.String("truth", "", "scorecard: the simulated world's truth `file` (demo --truth)")
+		user       = fs.String("user", "", "forget: the person's user `id` as sent (pseudonymised like input when a key is configured)")
 	)
 	switch cmd {
-	case "credit", "shift", "status", "transitions", "paths", "funnel", "alerts":
+	case "credit", "shift", "status", "transitions", "paths", "funnel", "alerts", "scorecard", "forget":
 	default:
 		fmt.Fprintf(stderr, "query: unknown command %q (see --help)\n", cmd)
 		return 2
@@ -172,6 +178,18 @@ func run(args []string, stdout, stderr io.Writer) int {
 	}
 	if (cmd == "transitions" || cmd == "paths") && *level == "" {
 		return fail(2, errors.New("--level is required: channel or action"))
+	}
+	if cmd == "scorecard" && *truthPath == "" {
+		return fail(2, errors.New("--truth FILE is required (write it with: demo --truth FILE)"))
+	}
+	if cmd == "forget" {
+		if *user == "" {
+			return fail(2, errors.New("--user ID is required"))
+		}
+		if *dataDir == "" {
+			return fail(2, errors.New("forget works on a stopped worker's --data directory"))
+		}
+		return forget(*dataDir, *user, cfg, f, stdout, fail)
 	}
 	var q *query.Querier
 	var missing []int
@@ -284,6 +302,24 @@ func run(args []string, stdout, stderr io.Writer) int {
 		if err := query.WriteAlerts(stdout, a, f); err != nil {
 			return fail(1, err)
 		}
+	case "scorecard":
+		truth, err := query.ReadTruth(*truthPath)
+		if err != nil {
+			return fail(1, err)
+		}
+		var answers []query.CreditAnswer
+		for _, m := range strings.Split(modelNames(), ", ") {
+			a, err := q.Credit(m, query.ByChannel, 0, span)
+			if err != nil {
+				return fail(1, fmt.Errorf("model %s: %w", m, err))
+			}
+			answers = append(answers, a)
+		}
+		sc := query.Scorecard(answers, truth)
+		sc.MissingPartitions = missing
+		if err := query.WriteScorecard(stdout, sc, f); err != nil {
+			return fail(1, err)
+		}
 	case "status":
 		s, p, err := q.Status(span)
 		if err != nil {
@@ -294,6 +330,48 @@ func run(args []string, stdout, stderr io.Writer) int {
 			return fail(1, err)
 		}
 	}
+	return 0
+}
+
+// forget erases a person from a stopped worker's data directory.
+func forget(dir, user string, cfg config.Config, f query.Format, stdout io.Writer, fail func(int, error) int) int {
+	if _, err := os.Stat(filepath.Join(dir, "MANIFEST")); err != nil {
+		return fail(1, fmt.Errorf("%s is not a touchledger data directory", dir))
+	}
+	ps, err := pipeline.PseudonymsFrom(cfg)
+	if err != nil {
+		return fail(1, err)
+	}
+	st, err := state.Open(context.Background(), pipeline.StoreOptions(dir, cfg))
+	if err != nil {
+		return fail(1, err)
+	}
+	defer st.Close()
+	pc := pipeline.FromConfig(cfg)
+	pc.Pseudonyms = ps
+	p, err := pipeline.New(st, pc, nil, nil)
+	if err != nil {
+		return fail(1, err)
+	}
+	rep, err := p.Forget(context.Background(), user)
+	if cerr := p.Close(); err == nil {
+		err = cerr
+	}
+	if err != nil {
+		return fail(1, err)
+	}
+	if f == query.JSON {
+		if err := query.WriteJSON(stdout, rep); err != nil {
+			return fail(1, err)
+		}
+		return 0
+	}
+	what := "had no stored state"
+	if rep.HadState {
+		what = "session, journey and de-duplication state deleted"
+	}
+	fmt.Fprintf(stdout, "forgot %s: %s; events for them arriving before %s are dropped; aggregate counters, which hold no identifiers, are kept\n",
+		rep.User, what, rep.DroppedUntil.Format(time.RFC3339))
 	return 0
 }
 

@@ -691,9 +691,11 @@ func (p *Processor) commit(ctx context.Context, wait bool) error {
 	if p.source != "" {
 		c.Checkpoints[p.source] = cb
 	}
-	if len(cp.Pending) > 0 || (p.cfg.PersistPending && p.reorder.Len() > 0) {
+	switch {
+	case p.source == "": // no input begun (an erasure alone): leave the marker as it is
+	case len(cp.Pending) > 0 || (p.cfg.PersistPending && p.reorder.Len() > 0):
 		c.Meta[metaOpen] = []byte(p.source)
-	} else {
+	default:
 		c.Meta[metaOpen] = []byte{}
 	}
 	c.Meta[state.MetaWatermark] = state.EncodeWatermark(p.reorder.MaxSeen(), p.reorder.Floor())
