@@ -43,6 +43,8 @@ type Options struct {
 	MaxInFlight int
 	// Log receives server-side errors. Default: discarded.
 	Log *slog.Logger
+	// Page, if set, serves "/" and "/static/" (the dashboard).
+	Page http.Handler
 }
 
 // NewHandler serves /healthz, /readyz, /metrics and the JSON/CSV API under
@@ -88,6 +90,10 @@ func NewHandler(opts Options) http.Handler {
 			writeError(w, http.StatusNotFound, fmt.Errorf("no such endpoint %s (see /api/credit, shift, transitions, paths, funnel, alerts, status)", r.URL.Path))
 		})
 	}
+	if opts.Page != nil {
+		mux.Handle("GET /{$}", opts.Page)
+		mux.Handle("GET /static/", opts.Page)
+	}
 	if opts.Token == "" {
 		return mux
 	}
@@ -95,7 +101,9 @@ func NewHandler(opts Options) http.Handler {
 }
 
 // requireToken lets /healthz through and asks every other request for the
-// bearer token (compared in constant time).
+// token (compared in constant time): as "Authorization: Bearer <token>", or,
+// for browsers opening the dashboard, as the password of HTTP Basic
+// authentication (any user name), which browsers prompt for.
 func requireToken(token string, next http.Handler) http.Handler {
 	want := []byte(token)
 	return http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
@@ -104,8 +112,13 @@ func requireToken(token string, next http.Handler) http.Handler {
 			return
 		}
 		scheme, got, ok := strings.Cut(r.Header.Get("Authorization"), " ")
-		if !ok || !strings.EqualFold(scheme, "Bearer") || subtle.ConstantTimeCompare([]byte(strings.TrimSpace(got)), want) != 1 {
+		good := ok && strings.EqualFold(scheme, "Bearer") && subtle.ConstantTimeCompare([]byte(strings.TrimSpace(got)), want) == 1
+		if _, pass, basic := r.BasicAuth(); !good && basic {
+			good = subtle.ConstantTimeCompare([]byte(pass), want) == 1
+		}
+		if !good {
 			w.Header().Set("WWW-Authenticate", `Bearer realm="touchledger"`)
+			w.Header().Add("WWW-Authenticate", `Basic realm="touchledger"`)
 			writeError(w, http.StatusUnauthorized, errors.New("a valid bearer token is required"))
 			return
 		}

@@ -730,3 +730,34 @@ func TestAPIInFlightBound(t *testing.T) {
 		t.Errorf("first request: %d, want 503 (no data)", code)
 	}
 }
+
+// TestPageMountedAndTokenByBasicAuth: the dashboard handler answers "/" and
+// "/static/", and with a token a browser's Basic authentication (password =
+// token) is accepted as well as a bearer header.
+func TestPageMountedAndTokenByBasicAuth(t *testing.T) {
+	page := http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) { io.WriteString(w, "page "+r.URL.Path) })
+	h := web.NewHandler(web.Options{Page: page, Token: "s3cret"})
+	for _, c := range []struct {
+		path, user, pass, bearer string
+		code                     int
+	}{
+		{"/", "", "", "", http.StatusUnauthorized},
+		{"/", "anyone", "s3cret", "", http.StatusOK},
+		{"/static/dashboard.css", "", "", "s3cret", http.StatusOK},
+		{"/", "anyone", "wrong", "", http.StatusUnauthorized},
+		{"/healthz", "", "", "", http.StatusOK},
+	} {
+		req := httptest.NewRequest(http.MethodGet, c.path, nil)
+		if c.pass != "" {
+			req.SetBasicAuth(c.user, c.pass)
+		}
+		if c.bearer != "" {
+			req.Header.Set("Authorization", "Bearer "+c.bearer)
+		}
+		rec := httptest.NewRecorder()
+		h.ServeHTTP(rec, req)
+		if rec.Code != c.code {
+			t.Errorf("%s (%q/%q/%q): %d, want %d", c.path, c.user, c.pass, c.bearer, rec.Code, c.code)
+		}
+	}
+}
