@@ -5,11 +5,16 @@ set -euo pipefail
 cd "$(dirname "$0")/.."
 dir=${1:-./tl-data}
 mkdir -p "$dir"
-go run ./cmd/demo --out "$dir/demo-events.jsonl"
-go run ./cmd/ingest --data "$dir/store" --replay "$dir/demo-events.jsonl" --rejects "$dir/rejects.jsonl"
+cfg=demo/touchledger.yaml
+go run ./cmd/demo --out "$dir/demo-events.jsonl" --truth "$dir/truth.json"
+go run ./cmd/ingest --config "$cfg" --data "$dir/store" --replay "$dir/demo-events.jsonl" --rejects "$dir/rejects.jsonl"
 echo
-go run ./cmd/query credit --data "$dir/store" --model linear --last 28d --chart
+go run ./cmd/query credit --config "$cfg" --data "$dir/store" --model linear --last 28d --chart
 echo
-go run ./cmd/query credit --data "$dir/store" --model position-based --last 7d
+go run ./cmd/query credit --config "$cfg" --data "$dir/store" --model position-based --last 7d
 echo
-go run ./cmd/query shift --data "$dir/store" --model linear --days 7
+go run ./cmd/query shift --config "$cfg" --data "$dir/store" --model linear --days 7
+echo
+go run ./cmd/query alerts --config "$cfg" --data "$dir/store" --last 14d
+echo
+go run ./cmd/query scorecard --config "$cfg" --data "$dir/store" --truth "$dir/truth.json" --last 28d

@@ -118,7 +118,7 @@ func WriteScorecard(w io.Writer, a ScorecardAnswer, f Format) error {
 		}
 		return csvOut(w, rows)
 	}
-	fmt.Fprintf(w, "model scorecard · %s to %s\nshares of credit over the touch channels next to the simulated truth; error = Σ|share − true| (0 perfect, 2 worst)\n\n", a.From, a.To)
+	fmt.Fprintf(w, "model scorecard · %s to %s\nshares of credit over the touch channels next to the simulated truth; error = Σ|share − true| (0 perfect; 2 = nothing in common; more only with negative shares)\n\n", a.From, a.To)
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
 	head := "MODEL\tERROR\t"
 	for _, ch := range a.Channels {
