@@ -52,7 +52,7 @@ type ScorecardAnswer struct {
 type ModelScore struct {
 	Model string    `json:"model"`
 	Share []float64 `json:"share"` // per channel, over the channels in the truth
-	Error float64   `json:"error"` // Σ |share − true share|, from 0 (perfect) to 2
+	Error float64   `json:"error"` // Σ |share − true share|: 0 perfect, 2 disjoint, more only with negative shares
 }
 
 // Scorecard scores credit answers against the truth. A model's credit is
