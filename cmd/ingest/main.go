@@ -1,6 +1,8 @@
 // Command ingest feeds events into a touchledger data directory.
 //
+//	ingest --data DIR                   live: consume the bus (embedded NATS unless --nats URL)
 //	ingest --data DIR --replay FILE     replay a JSON-lines file ("-" = stdin, .gz accepted)
+//	ingest send [--nats URL] FILE       publish a JSON-lines file to the bus
 //	ingest --print-config               print the effective configuration
 //
 // See README.md and `ingest --help`.
@@ -28,8 +30,40 @@ import (
 const usage = `ingest: feed clickstream and ad-exposure events into a touchledger data directory.
 
 Usage:
-  ingest --data DIR --replay FILE [--rejects FILE] [--source NAME] [--config FILE]
+  ingest --data DIR [--nats URL] [--partitions 0-7] [--http ADDR] [--config FILE]   live
+  ingest send [--nats URL] [--rate N] FILE|-                                          publish
+  ingest --data DIR --replay FILE [--rejects FILE] [--source NAME] [--config FILE]  replay
   ingest --print-config [--config FILE]
+
+Live (no --replay) consumes events from NATS JetStream until SIGINT or
+SIGTERM. Without --nats it starts an embedded NATS server in this process,
+listening on 127.0.0.1 only (--port, default 4222) with JetStream storing
+under DIR/nats, and prints its client URL; with --nats it connects to an
+existing server or cluster (auth: --nats-user/--nats-password, --nats-token,
+--nats-nkey or --nats-creds; TLS: --nats-ca, --nats-cert, --nats-key).
+
+Subjects: publishers send each event to tl.in.<kind>.<user key> (kind touch
+or action; user key = 16 hex digits of xxhash64 of the user id) with the
+event id as Nats-Msg-Id. The server maps tl.in.*.* to
+tl.ev.{{partition(16,2)}}.<kind>.<user key>, so one user's events always
+land in one of 16 partitions; stream TL_EVENTS holds tl.ev.>. A worker owns
+--partitions (default all) through the durable consumer
+tl-worker-<first>-<last> and keeps its own data directory. Rejected and late
+events go to stream TL_DEAD as tl.dead.<reason>, with headers Tl-Reason,
+Tl-Subject and Tl-Stream-Seq.
+
+Every event counts exactly once across kill -9, redelivery and publisher
+retries: the stream position is committed with the state in one
+transaction, the consumer restarts from it, and messages are acknowledged
+only after the commit. Event time follows the wall clock while the input is
+quiet, so sessions close on quiet nights too. SIGINT/SIGTERM stops fetching,
+commits what was read (events inside the allowed lateness stay buffered in
+the store) and exits 0.
+
+HTTP (--http, default 127.0.0.1:9464; "off" disables): /metrics
+(Prometheus), /healthz, /readyz, and the JSON/CSV API under /api/ (credit,
+shift, transitions, paths, funnel, alerts, status). The worker also answers
+query --nats for its partitions.
 
 Replay reads one JSON event per line (FILE "-" reads standard input; gzip is
 recognised), orders events by event time within the allowed lateness, splits
@@ -37,10 +71,11 @@ them into sessions and journeys, credits channels under every rule-based model
 and commits the state with the input position in one transaction. It exits 0
 once everything is committed and prints one summary line. Running the same
 file again, or again after the process was killed, resumes where the last
-commit ended: every event counts exactly once.
+commit ended: every event counts exactly once. Invalid lines and late events
+go to the rejects file (default DIR/rejects.jsonl) as JSON lines with the
+line number, a reason code and the original text.
 
-Invalid lines and late events go to the rejects file (default DIR/rejects.jsonl)
-as JSON lines with the line number, a reason code and the original text.
+See "ingest send --help" for publishing.
 
 Options:
 `
@@ -59,6 +94,9 @@ func main() {
 }
 
 func run(args []string, stdout, stderr io.Writer) int {
+	if len(args) > 0 && args[0] == "send" {
+		return runSend(args[1:], stdout, stderr)
+	}
 	fs := flag.NewFlagSet("ingest", flag.ContinueOnError)
 	fs.SetOutput(stderr)
 	var (
@@ -69,7 +107,9 @@ func run(args []string, stdout, stderr io.Writer) int {
 		configPath  = fs.String("config", "", "YAML configuration `file` (defaults apply without it)")
 		printConfig = fs.Bool("print-config", false, "print the effective configuration and exit")
 		verbose     = fs.Bool("v", false, "log commits and progress to standard error")
+		live        liveFlags
 	)
+	addLiveFlags(fs, &live)
 	fs.Usage = func() {
 		fmt.Fprint(stderr, usage)
 		fs.PrintDefaults()
@@ -101,17 +141,39 @@ func run(args []string, stdout, stderr io.Writer) int {
 		stdout.Write(b)
 		return 0
 	}
-	if *dataDir == "" || *replay == "" {
-		fmt.Fprintln(stderr, "ingest: --data and --replay are required (see --help)")
+	if *dataDir == "" {
+		fmt.Fprintln(stderr, "ingest: --data is required (see --help)")
 		return 2
+	}
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	defer stop()
+	if *replay == "" {
+		level := slog.LevelInfo
+		if *verbose {
+			level = slog.LevelDebug
+		}
+		hopts := &slog.HandlerOptions{Level: level}
+		var h slog.Handler
+		switch live.logFormat {
+		case "text":
+			h = slog.NewTextHandler(stderr, hopts)
+		case "json":
+			h = slog.NewJSONHandler(stderr, hopts)
+		default:
+			fmt.Fprintf(stderr, "ingest: --log-format %q: want text or json\n", live.logFormat)
+			return 2
+		}
+		if err := runLive(ctx, cfg, *dataDir, live, stdout, slog.New(h)); err != nil {
+			fmt.Fprintf(stderr, "ingest: %v\n", err)
+			return 1
+		}
+		return 0
 	}
 	level := slog.LevelWarn
 	if *verbose {
 		level = slog.LevelDebug
 	}
 	log := slog.New(slog.NewTextHandler(stderr, &slog.HandlerOptions{Level: level}))
-	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
-	defer stop()
 	if err := replayFile(ctx, cfg, *dataDir, *replay, *rejectsPath, *source, stdout, log); err != nil {
 		fmt.Fprintf(stderr, "ingest: %v\n", err)
 		return 1

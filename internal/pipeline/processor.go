@@ -480,6 +480,13 @@ func (p *Processor) forgetPending(pos uint64) {
 // interval has passed with changes pending. Live input only: replay never
 // uses the wall clock.
 func (p *Processor) Tick(ctx context.Context, now time.Time) error {
+	if p.lastArrival.IsZero() && p.reorder.Len() > 0 {
+		// Restored buffered events and no new input yet: event time starts
+		// following the wall clock from the largest time seen.
+		if ms := p.reorder.MaxSeen(); ms != minInt64 {
+			p.lastArrival, p.lastEvent = now, ms
+		}
+	}
 	if !p.lastArrival.IsZero() && p.lastEvent != 0 {
 		adv := p.lastEvent + int64(now.Sub(p.lastArrival))
 		if adv > now.UnixNano() {

@@ -1,0 +1,267 @@
+package main
+
+import (
+	"context"
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"log/slog"
+	"net/http"
+	"os"
+	"path/filepath"
+	"time"
+
+	"github.com/nats-io/nats-server/v2/server"
+	"github.com/nats-io/nats.go"
+	"github.com/nats-io/nats.go/jetstream"
+	"github.com/prometheus/client_golang/prometheus"
+	"github.com/prometheus/client_golang/prometheus/collectors"
+
+	"github.com/touchledger/touchledger/internal/config"
+	"github.com/touchledger/touchledger/internal/metrics"
+	"github.com/touchledger/touchledger/internal/pipeline"
+	"github.com/touchledger/touchledger/internal/query"
+	"github.com/touchledger/touchledger/internal/remote"
+	"github.com/touchledger/touchledger/internal/state"
+	"github.com/touchledger/touchledger/internal/stream"
+	"github.com/touchledger/touchledger/internal/web"
+)
+
+// natsFlags are the options for reaching an existing NATS server.
+type natsFlags struct {
+	url, user, password, token, nkey, creds, ca, cert, key string
+}
+
+func addNATSFlags(fs *flag.FlagSet, f *natsFlags, defaultURL, urlHelp string) {
+	fs.StringVar(&f.url, "nats", defaultURL, urlHelp)
+	fs.StringVar(&f.user, "nats-user", "", "NATS `user` (with --nats-password)")
+	fs.StringVar(&f.password, "nats-password", "", "NATS `password` (default $TL_NATS_PASSWORD)")
+	fs.StringVar(&f.token, "nats-token", "", "NATS `token` (default $TL_NATS_TOKEN)")
+	fs.StringVar(&f.nkey, "nats-nkey", "", "NKey seed `file`")
+	fs.StringVar(&f.creds, "nats-creds", "", "credentials `file` (user JWT and seed)")
+	fs.StringVar(&f.ca, "nats-ca", "", "TLS: CA certificates `file` to trust")
+	fs.StringVar(&f.cert, "nats-cert", "", "TLS: client certificate `file` (with --nats-key)")
+	fs.StringVar(&f.key, "nats-key", "", "TLS: client key `file`")
+}
+
+// options returns the connection options; secrets not given as flags come
+// from the environment (so they need not appear in the process list).
+func (f natsFlags) options(name string) stream.ConnectOptions {
+	if f.password == "" {
+		f.password = os.Getenv("TL_NATS_PASSWORD")
+	}
+	if f.token == "" {
+		f.token = os.Getenv("TL_NATS_TOKEN")
+	}
+	return stream.ConnectOptions{URL: f.url, Name: name, User: f.user, Password: f.password, Token: f.token,
+		NKeyFile: f.nkey, CredsFile: f.creds, CAFile: f.ca, CertFile: f.cert, KeyFile: f.key}
+}
+
+// liveFlags are the options of live mode.
+type liveFlags struct {
+	nats         natsFlags
+	port         int
+	partitions   string
+	scfg         stream.Config
+	httpAddr     string
+	httpToken    string
+	logFormat    string
+	shutdownWait time.Duration
+}
+
+func addLiveFlags(fs *flag.FlagSet, l *liveFlags) {
+	l.scfg = stream.DefaultConfig()
+	addNATSFlags(fs, &l.nats, "", "NATS server `url`s (comma-separated) to consume from; default: start an embedded server")
+	fs.IntVar(&l.port, "port", stream.DefaultPort, "embedded server's client `port` on 127.0.0.1 (0 = any free port)")
+	fs.StringVar(&l.partitions, "partitions", "", "partition `range` this worker owns, e.g. 0-7 (default: all)")
+	fs.IntVar(&l.scfg.Partitions, "partition-count", l.scfg.Partitions, "`number` of partitions of the subject mapping")
+	fs.StringVar(&l.scfg.Prefix, "prefix", l.scfg.Prefix, "subject `prefix`")
+	fs.StringVar(&l.scfg.Stream, "stream", l.scfg.Stream, "events stream `name`")
+	fs.StringVar(&l.scfg.DeadStream, "dead-stream", l.scfg.DeadStream, "dead-letter stream `name`")
+	fs.IntVar(&l.scfg.Replicas, "replicas", l.scfg.Replicas, "stream `replicas` (3 on a three-node cluster)")
+	fs.DurationVar(&l.scfg.MaxAge, "max-age", l.scfg.MaxAge, "how long the streams keep messages")
+	fs.DurationVar(&l.scfg.Duplicates, "dedup-window", l.scfg.Duplicates, "the events stream's de-duplication window for message ids")
+	fs.DurationVar(&l.scfg.QuietAfter, "quiet-after", l.scfg.QuietAfter, "event time follows the wall clock once no message arrived for this long")
+	fs.DurationVar(&l.scfg.WatchdogTimeout, "watchdog", l.scfg.WatchdogTimeout, "flag the consumer stalled after this long without deliveries while messages are pending")
+	fs.StringVar(&l.httpAddr, "http", web.DefaultAddr, "`address` for /metrics, /healthz, /readyz and /api/ (\"off\" disables; port 0 = any free port)")
+	fs.StringVar(&l.httpToken, "http-token", "", "bearer `token` required on HTTP (default $TL_HTTP_TOKEN; needed to listen beyond loopback)")
+	fs.StringVar(&l.logFormat, "log-format", "text", "log `format` on standard error: text or json")
+	fs.DurationVar(&l.shutdownWait, "shutdown-timeout", 10*time.Second, "longest wait for HTTP requests when stopping")
+}
+
+// runLive is live mode: consume the stream into dir until ctx ends.
+func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, stdout io.Writer, log *slog.Logger) (err error) {
+	if l.httpToken == "" {
+		l.httpToken = os.Getenv("TL_HTTP_TOKEN")
+	}
+	parts, err := stream.ParsePartitions(l.partitions, l.scfg.Partitions)
+	if err != nil {
+		return err
+	}
+	if err := l.scfg.Validate(); err != nil {
+		return err
+	}
+	if l.httpAddr != "off" && l.httpAddr != "" {
+		if err := web.CheckListen(l.httpAddr, l.httpToken); err != nil {
+			return err
+		}
+	}
+	if err := os.MkdirAll(dir, 0o750); err != nil {
+		return err
+	}
+
+	// The bus: embedded unless --nats.
+	url := l.nats.url
+	if url == "" {
+		var srv *server.Server
+		srv, url, err = stream.StartEmbedded(dir, stream.EmbedPort(l.port), stream.EmbedConfig(l.scfg), stream.EmbedLogger(log))
+		if err != nil {
+			return err
+		}
+		defer func() {
+			srv.Shutdown()
+			srv.WaitForShutdown()
+		}()
+		fmt.Fprintf(stdout, "nats: %s (embedded, loopback only; JetStream in %s; publish with: ingest send --nats %s FILE)\n",
+			url, filepath.Join(dir, "nats"), url)
+	}
+	opts := l.nats.options("touchledger worker " + parts.String())
+	opts.URL = url
+	nc, err := stream.Connect(opts, log)
+	if err != nil {
+		return err
+	}
+	defer drain(nc)
+	js, err := jetstream.New(nc)
+	if err != nil {
+		return err
+	}
+	sctx, cancel := context.WithTimeout(ctx, 30*time.Second)
+	err = stream.EnsureStream(sctx, js, l.scfg)
+	cancel()
+	if err != nil {
+		return err
+	}
+
+	// The store and the processor.
+	st, err := state.Open(ctx, pipeline.StoreOptions(dir, cfg))
+	if err != nil {
+		return err
+	}
+	defer func() {
+		if cerr := st.Close(); err == nil {
+			err = cerr
+		}
+	}()
+	w, err := stream.NewWorker(js, l.scfg, parts, log)
+	if err != nil {
+		return err
+	}
+	var (
+		p *pipeline.Processor
+		m *metrics.Metrics
+	)
+	pcfg := pipeline.FromConfig(cfg)
+	pcfg.OnCommit = func(string, pipeline.Checkpoint) {
+		if m != nil && p != nil {
+			m.ObserveCommit(p.Status().CommitTook)
+		}
+	}
+	p, err = pipeline.New(st, w.ProcessorConfig(pcfg), w.DeadLetters(), log)
+	if err != nil {
+		return err
+	}
+	defer func() {
+		if cerr := p.Close(); err == nil {
+			err = cerr
+		}
+	}()
+	qparams := pipeline.QueryParams(cfg)
+	openQuerier := func() (*query.Querier, error) { return query.NewQuerier(st, qparams) }
+
+	// Metrics and HTTP.
+	reg := prometheus.NewRegistry()
+	reg.MustRegister(collectors.NewGoCollector(), collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}))
+	mopts := metrics.Options{
+		Status:         p,
+		OpenQuerier:    openQuerier,
+		ConsumerLag:    w.Lag,
+		SessionGap:     cfg.SessionGap.D(),
+		JourneyTimeout: cfg.JourneyTimeout.D(),
+		Interval:       cfg.Alert.Interval.D(),
+	}
+	if err := mopts.Validate(); err != nil {
+		return err
+	}
+	m = metrics.New(reg, mopts)
+	if l.httpAddr != "off" && l.httpAddr != "" {
+		idle := func(ctx context.Context) bool {
+			lag, err := w.Lag(ctx)
+			return err == nil && lag == 0 && w.Health().Committed == 0
+		}
+		h := web.NewHandler(web.Options{
+			Gatherer:       reg,
+			OpenQuerier:    openQuerier,
+			Ready:          web.ReadyAfterCommit(p, idle),
+			Token:          l.httpToken,
+			MarkovMaxOrder: cfg.MarkovMaxOrder,
+			Log:            log,
+		})
+		ln, err := web.Listen(ctx, l.httpAddr, l.httpToken)
+		if err != nil {
+			return err
+		}
+		srv := web.NewServer(ln.Addr().String(), h)
+		go func() {
+			if err := srv.Serve(ln); err != nil && !errors.Is(err, http.ErrServerClosed) {
+				log.Error("http", "err", err)
+			}
+		}()
+		defer func() {
+			sctx, cancel := context.WithTimeout(context.Background(), l.shutdownWait)
+			defer cancel()
+			srv.Shutdown(sctx)
+		}()
+		fmt.Fprintf(stdout, "http: http://%s/ (metrics, healthz, readyz, api)\n", ln.Addr())
+	}
+
+	// Queries over NATS for this worker's partitions.
+	svc, err := remote.Register(nc, l.scfg.Prefix, parts.First, parts.Last, st, st.Resolutions())
+	if err != nil {
+		return err
+	}
+	defer svc.Stop()
+	fmt.Fprintf(stdout, "worker: partitions %s of %d, stream %s, consumer %s, data %s\n",
+		parts, l.scfg.Partitions, l.scfg.Stream, w.Consumer(), dir)
+	if f, ok := stdout.(*os.File); ok {
+		f.Sync()
+	}
+
+	start := time.Now()
+	if err := w.Run(ctx, p); err != nil {
+		return err
+	}
+	s := p.Status()
+	c := s.Counts
+	fmt.Fprintf(stdout, "stopped: accepted %d, duplicate %d, rejected %d, late %d, buffered %d (ran %s)\n",
+		c.Accepted, c.Duplicate, c.RejectedTotal(), c.Late, s.Buffered, time.Since(start).Round(time.Second))
+	return nil
+}
+
+// drain flushes the connection (the last acknowledgements) and closes it.
+// A lost acknowledgement is harmless: the next start repositions the
+// consumer from the committed checkpoint.
+func drain(nc *nats.Conn) {
+	closed := make(chan struct{})
+	nc.SetClosedHandler(func(*nats.Conn) { close(closed) })
+	if err := nc.Drain(); err != nil {
+		nc.Close()
+		return
+	}
+	select {
+	case <-closed:
+	case <-time.After(5 * time.Second):
+		nc.Close()
+	}
+}

@@ -1,0 +1,376 @@
+package main
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"fmt"
+	"math/rand"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"strings"
+	"sync"
+	"syscall"
+	"testing"
+	"time"
+
+	"github.com/nats-io/nats.go"
+	"github.com/nats-io/nats.go/jetstream"
+
+	"github.com/touchledger/touchledger/demo/shop"
+	"github.com/touchledger/touchledger/internal/config"
+	"github.com/touchledger/touchledger/internal/credit"
+	"github.com/touchledger/touchledger/internal/pipeline"
+	"github.com/touchledger/touchledger/internal/query"
+	"github.com/touchledger/touchledger/internal/state"
+	"github.com/touchledger/touchledger/internal/stream"
+)
+
+// TestLiveKillExactlyOnce runs the live worker as a child process against a
+// NATS server owned by the test (so the bus outlives every kill), kills it
+// with SIGKILL at random moments at least ten times while events flow in
+// slices, re-publishes events both inside the stream's de-duplication
+// window (the stream drops them) and outside it (the worker's per-user
+// de-duplication must catch them), restarts it each time, and checks that
+// accepted = unique valid events, every invalid line is one dead letter,
+// and every query answer equals a clean replay (issue 4, "Exactly-once
+// under faults").
+func TestLiveKillExactlyOnce(t *testing.T) {
+	visitors, days, slices, minKills := 16000, 8, 10, 12
+	if testing.Short() {
+		visitors, days, slices, minKills = 5000, 5, 6, 10
+	}
+	bin := buildIngest(t)
+	const window = time.Second // the stream's de-duplication window in this test
+
+	// The input: demo events with invalid lines mixed in, in slices.
+	c := shop.DefaultConfig()
+	c.Visitors, c.Days, c.ShiftDay, c.IncidentDay = visitors, days, days/2, days-1
+	var buf bytes.Buffer
+	if _, err := shop.Generate(&buf, c); err != nil {
+		t.Fatal(err)
+	}
+	var lines []string
+	junk := 0
+	for i, l := range strings.Split(strings.TrimSpace(buf.String()), "\n") {
+		lines = append(lines, l)
+		if i%997 == 0 {
+			lines = append(lines, fmt.Sprintf(`{"id":"junk-%d","user":"j%d","time":"soon","kind":"action","action":"view_item"}`, i, i))
+			junk++
+		}
+	}
+	input := []byte(strings.Join(lines, "\n") + "\n")
+	cfgFile := filepath.Join(t.TempDir(), "tl.yaml")
+	// A short lateness lets the wall clock release the last events quickly;
+	// small commits put many commits (and kills between them) in the run.
+	cfgYAML := "lateness: 3s\nstore:\n  commit_events: 2000\n  commit_interval: 200ms\n"
+	if err := os.WriteFile(cfgFile, []byte(cfgYAML), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	fcfg, err := config.Load(cfgFile)
+	if err != nil {
+		t.Fatal(err)
+	}
+
+	// The bus, owned by the test.
+	scfg := stream.DefaultConfig()
+	scfg.Duplicates = window
+	srv, url, err := stream.StartEmbedded(t.TempDir(), stream.EmbedPort(0), stream.EmbedConfig(scfg))
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer func() { srv.Shutdown(); srv.WaitForShutdown() }()
+	nc, err := nats.Connect(url)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer nc.Close()
+	js, err := jetstream.New(nc)
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx := context.Background()
+	if err := stream.EnsureStream(ctx, js, scfg); err != nil {
+		t.Fatal(err)
+	}
+
+	// Publisher: slice after slice; after each, some of its lines again at
+	// once (inside the window) and some lines of the slice before last
+	// (published more than the window ago). The last slice is published
+	// once the final run has started, so that run consumes live input too.
+	per := (len(lines) + slices - 1) / slices
+	var parts [][]string
+	for i := 0; i < len(lines); i += per {
+		parts = append(parts, lines[i:min(i+per, len(lines))])
+	}
+	var pubErr error
+	var outside, inside int64
+	publish := func(i int) {
+		send := func(ls []string) stream.SendStats {
+			st, err := stream.Send(ctx, js, strings.NewReader(strings.Join(ls, "\n")), stream.SendOptions{})
+			if err != nil && pubErr == nil {
+				pubErr = err
+			}
+			return st
+		}
+		send(parts[i])
+		inside += send(valid(parts[i][:40])).Duplicates
+		if i >= 2 {
+			outside += send(valid(parts[i-2][len(parts[i-2])/2:][:60])).Stored
+		}
+	}
+	published := make(chan struct{})
+	go func() {
+		defer close(published)
+		for i := range len(parts) - 1 {
+			publish(i)
+			time.Sleep(window + 200*time.Millisecond)
+		}
+	}()
+
+	dir := t.TempDir()
+	var stderr lockedBuffer
+	start := func() *exec.Cmd {
+		cmd := exec.Command(bin, "--data", dir, "--nats", url, "--config", cfgFile, "--http", "off",
+			"--dedup-window", window.String(), "--watchdog", "5s")
+		cmd.Stdout = &stderr
+		cmd.Stderr = &stderr
+		if err := cmd.Start(); err != nil {
+			t.Fatal(err)
+		}
+		return cmd
+	}
+	rng := rand.New(rand.NewSource(4))
+	kills := 0
+	for done := false; !done || kills < minKills; {
+		select {
+		case <-published:
+			done = true
+		default:
+		}
+		cmd := start()
+		time.Sleep(time.Duration(100+rng.Intn(800)) * time.Millisecond)
+		cmd.Process.Signal(syscall.SIGKILL)
+		err := cmd.Wait()
+		if ee, ok := err.(*exec.ExitError); !ok || !ee.ProcessState.Sys().(syscall.WaitStatus).Signaled() {
+			t.Fatalf("worker ended before the kill (%v):\n%s", err, stderr.String())
+		}
+		kills++
+	}
+	if pubErr != nil {
+		t.Fatal(pubErr)
+	}
+	// The last run: until every message is committed and acknowledged,
+	// then past the lateness so the wall clock releases the buffer, then a
+	// graceful stop.
+	cmd := start()
+	publish(len(parts) - 1)
+	if pubErr != nil {
+		t.Fatal(pubErr)
+	}
+	deadline := time.Now().Add(60 * time.Second)
+	for {
+		cons, err := js.Consumer(ctx, scfg.Stream, stream.ConsumerName(scfg.AllPartitions()))
+		if err == nil {
+			if info := cons.CachedInfo(); info.NumPending == 0 && info.NumAckPending == 0 && info.AckFloor.Stream > 0 {
+				break
+			}
+		}
+		if time.Now().After(deadline) {
+			cmd.Process.Kill()
+			t.Fatalf("worker did not catch up:\n%s", stderr.String())
+		}
+		time.Sleep(50 * time.Millisecond)
+	}
+	time.Sleep(fcfg.Lateness.D() + time.Second)
+	cmd.Process.Signal(syscall.SIGTERM)
+	if err := cmd.Wait(); err != nil {
+		t.Fatalf("graceful stop: %v\n%s", err, stderr.String())
+	}
+	t.Logf("killed %d times; re-published %d inside the window (dropped by the stream), %d outside", kills, inside, outside)
+	if outside == 0 || inside == 0 {
+		t.Fatalf("duplicates not exercised: %d inside, %d outside the window", inside, outside)
+	}
+
+	// Counts: every valid event once, the late-arriving copies counted as
+	// duplicates, every invalid line once.
+	cp := checkpointOf(t, dir, scfg.SourceName(scfg.AllPartitions()))
+	unique := uint64(len(lines) - junk)
+	if n := pendingOf(t, dir, scfg.SourceName(scfg.AllPartitions())); n > 0 {
+		t.Errorf("%d events still buffered in the store after the lateness passed", n)
+	}
+	if cp.Counts.Accepted != unique || cp.Counts.RejectedTotal() != uint64(junk) || cp.Counts.Late != 0 {
+		t.Errorf("counts %+v: want accepted %d, rejected %d, late 0", cp.Counts, unique, junk)
+	}
+	if cp.Counts.Duplicate < uint64(outside) {
+		t.Errorf("duplicates %d, want at least the %d published outside the window", cp.Counts.Duplicate, outside)
+	}
+	dead, err := js.Stream(ctx, scfg.DeadStream)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if n := dead.CachedInfo().State.Msgs; n != uint64(junk) {
+		t.Errorf("dead letters %d, want %d (one per invalid line)", n, junk)
+	}
+
+	// Every answer equals a clean replay of the input.
+	clean := t.TempDir()
+	replayClean(t, clean, fcfg, input)
+	from := c.Start
+	to := from.Add(time.Duration(days) * 24 * time.Hour)
+	got, want := allAnswers(t, dir, fcfg, from, to), allAnswers(t, clean, fcfg, from, to)
+	if got != want {
+		i := 0
+		for i < len(got) && i < len(want) && got[i] == want[i] {
+			i++
+		}
+		lo := max(0, i-100)
+		t.Errorf("answers after kills differ from a clean replay at byte %d:\n got …%.300s\nwant …%.300s", i, got[lo:], want[lo:])
+	}
+}
+
+// valid keeps the lines that are events (not the junk).
+func valid(ls []string) []string {
+	var out []string
+	for _, l := range ls {
+		if !strings.Contains(l, `"junk-`) {
+			out = append(out, l)
+		}
+	}
+	return out
+}
+
+type lockedBuffer struct {
+	mu sync.Mutex
+	b  bytes.Buffer
+}
+
+func (l *lockedBuffer) Write(p []byte) (int, error) {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	return l.b.Write(p)
+}
+
+func (l *lockedBuffer) String() string {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	s := l.b.String()
+	if len(s) > 8000 {
+		s = "…" + s[len(s)-8000:]
+	}
+	return s
+}
+
+func checkpointOf(t *testing.T, dir, source string) pipeline.Checkpoint {
+	t.Helper()
+	st, err := state.Open(context.Background(), pipeline.StoreOptions(dir, config.Default()))
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer st.Close()
+	r := st.NewReader()
+	defer r.Discard()
+	b, err := r.Checkpoint(source)
+	if err != nil || b == nil {
+		t.Fatalf("checkpoint of %s: %v (found %v)", source, err, b != nil)
+	}
+	var cp pipeline.Checkpoint
+	if err := cp.UnmarshalBinary(b); err != nil {
+		t.Fatal(err)
+	}
+	return cp
+}
+
+func pendingOf(t *testing.T, dir, source string) int {
+	t.Helper()
+	st, err := state.Open(context.Background(), pipeline.StoreOptions(dir, config.Default()))
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer st.Close()
+	r := st.NewReader()
+	defer r.Discard()
+	n := 0
+	if err := r.Pending(source, func(uint64, []byte) error { n++; return nil }); err != nil {
+		t.Fatal(err)
+	}
+	return n
+}
+
+func replayClean(t *testing.T, dir string, cfg config.Config, input []byte) {
+	t.Helper()
+	ctx := context.Background()
+	st, err := state.Open(ctx, pipeline.StoreOptions(dir, cfg))
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer st.Close()
+	p, err := pipeline.New(st, pipeline.FromConfig(cfg), nil, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	_, err = pipeline.Replay(ctx, p, "clean", bytes.NewReader(input), cfg.Limits.MaxPayload)
+	if cerr := p.Close(); err == nil {
+		err = cerr
+	}
+	if err != nil {
+		t.Fatal(err)
+	}
+}
+
+// allAnswers is every query answer over [from, to) as JSON: credit under
+// every model, transitions and paths at both levels, the funnel, alerts.
+func allAnswers(t *testing.T, dir string, cfg config.Config, from, to time.Time) string {
+	t.Helper()
+	st, err := state.Open(context.Background(), pipeline.StoreOptions(dir, cfg))
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer st.Close()
+	q, err := query.NewQuerier(st, pipeline.QueryParams(cfg))
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer q.Close()
+	span := query.Span{From: from, To: to}
+	out := map[string]any{}
+	models := []string{query.ModelMarkov, query.ModelShapley}
+	for _, m := range credit.RuleModels {
+		models = append(models, m.String())
+	}
+	for _, m := range models {
+		a, err := q.Credit(m, query.ByChannel, 0, span)
+		if err != nil {
+			t.Fatalf("credit %s: %v", m, err)
+		}
+		out["credit/"+m] = a
+	}
+	for _, level := range []string{"channel", "action"} {
+		tr, err := q.Transitions(level, 1, span)
+		if err != nil {
+			t.Fatal(err)
+		}
+		out["transitions/"+level] = tr
+		pa, err := q.Paths(level, 20, span)
+		if err != nil {
+			t.Fatal(err)
+		}
+		out["paths/"+level] = pa
+	}
+	fu, err := q.Funnel(span)
+	if err != nil {
+		t.Fatal(err)
+	}
+	out["funnel"] = fu
+	al, err := q.Alerts(span, true)
+	if err != nil {
+		t.Fatal(err)
+	}
+	out["alerts"] = al
+	b, err := json.Marshal(out)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return string(b)
+}
