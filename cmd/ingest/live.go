@@ -25,6 +25,7 @@ import (
 	"github.com/touchledger/touchledger/internal/remote"
 	"github.com/touchledger/touchledger/internal/state"
 	"github.com/touchledger/touchledger/internal/stream"
+	"github.com/touchledger/touchledger/internal/dashboard"
 	"github.com/touchledger/touchledger/internal/web"
 )
 
@@ -207,6 +208,7 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 			Token:          l.httpToken,
 			MarkovMaxOrder: cfg.MarkovMaxOrder,
 			Log:            log,
+			Page:           dashboard.NewHandler(dashboard.Options{Open: openQuerier, Title: "touchledger"}),
 		})
 		ln, err := web.Listen(ctx, l.httpAddr, l.httpToken)
 		if err != nil {
