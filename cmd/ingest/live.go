@@ -19,13 +19,13 @@ import (
 	"github.com/prometheus/client_golang/prometheus/collectors"
 
 	"github.com/touchledger/touchledger/internal/config"
+	"github.com/touchledger/touchledger/internal/dashboard"
 	"github.com/touchledger/touchledger/internal/metrics"
 	"github.com/touchledger/touchledger/internal/pipeline"
 	"github.com/touchledger/touchledger/internal/query"
 	"github.com/touchledger/touchledger/internal/remote"
 	"github.com/touchledger/touchledger/internal/state"
 	"github.com/touchledger/touchledger/internal/stream"
-	"github.com/touchledger/touchledger/internal/dashboard"
 	"github.com/touchledger/touchledger/internal/web"
 )
 
