@@ -209,6 +209,7 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 			MarkovMaxOrder: cfg.MarkovMaxOrder,
 			Log:            log,
 			Page:           dashboard.NewHandler(dashboard.Options{Open: openQuerier, Title: "touchledger"}),
+			Backup:         st.Backup,
 		})
 		ln, err := web.Listen(ctx, l.httpAddr, l.httpToken)
 		if err != nil {

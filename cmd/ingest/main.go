@@ -33,6 +33,8 @@ Usage:
   ingest --data DIR [--nats URL] [--partitions 0-7] [--http ADDR] [--config FILE]   live
   ingest send [--nats URL] [--rate N] FILE|-                                          publish
   ingest --data DIR --replay FILE [--rejects FILE] [--source NAME] [--config FILE]  replay
+  ingest backup --from http://127.0.0.1:9464 --out FILE | --data DIR --out FILE  point-in-time copy
+  ingest restore --in FILE --data DIR                                                rebuild a directory
   ingest --print-config [--config FILE]
 
 Live (no --replay) consumes events from NATS JetStream until SIGINT or
@@ -94,8 +96,15 @@ func main() {
 }
 
 func run(args []string, stdout, stderr io.Writer) int {
-	if len(args) > 0 && args[0] == "send" {
-		return runSend(args[1:], stdout, stderr)
+	if len(args) > 0 {
+		switch args[0] {
+		case "send":
+			return runSend(args[1:], stdout, stderr)
+		case "backup":
+			return runBackup(args[1:], stdout, stderr)
+		case "restore":
+			return runRestore(args[1:], stdout, stderr)
+		}
 	}
 	fs := flag.NewFlagSet("ingest", flag.ContinueOnError)
 	fs.SetOutput(stderr)

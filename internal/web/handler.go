@@ -11,6 +11,7 @@ import (
 	"log/slog"
 	"net/http"
 	"strings"
+	"time"
 
 	"github.com/prometheus/client_golang/prometheus"
 	"github.com/prometheus/client_golang/prometheus/promhttp"
@@ -45,6 +46,9 @@ type Options struct {
 	Log *slog.Logger
 	// Page, if set, serves "/" and "/static/" (the dashboard).
 	Page http.Handler
+	// Backup, if set, serves GET /admin/backup: a point-in-time copy of the
+	// worker's store (state.Store.Backup) streamed as application/octet-stream.
+	Backup func(w io.Writer) (int, error)
 }
 
 // NewHandler serves /healthz, /readyz, /metrics and the JSON/CSV API under
@@ -88,6 +92,19 @@ func NewHandler(opts Options) http.Handler {
 		}
 		mux.HandleFunc("GET /api/", func(w http.ResponseWriter, r *http.Request) {
 			writeError(w, http.StatusNotFound, fmt.Errorf("no such endpoint %s (see /api/credit, shift, transitions, paths, funnel, alerts, status)", r.URL.Path))
+		})
+	}
+	if opts.Backup != nil {
+		mux.HandleFunc("GET /admin/backup", func(w http.ResponseWriter, r *http.Request) {
+			// A large store takes longer than the server's write timeout.
+			_ = http.NewResponseController(w).SetWriteDeadline(time.Time{})
+			w.Header().Set("Content-Type", "application/octet-stream")
+			w.Header().Set("Content-Disposition", `attachment; filename="touchledger.backup"`)
+			if _, err := opts.Backup(w); err != nil {
+				// Headers are gone; the client sees a truncated body, which
+				// restore rejects (checksum).
+				opts.Log.Error("backup", "error", err)
+			}
 		})
 	}
 	if opts.Page != nil {
