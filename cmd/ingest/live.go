@@ -164,6 +164,9 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 		m *metrics.Metrics
 	)
 	pcfg := pipeline.FromConfig(cfg)
+	if pcfg.Pseudonyms, err = pipeline.PseudonymsFrom(cfg); err != nil {
+		return err
+	}
 	pcfg.OnCommit = func(string, pipeline.Checkpoint) {
 		if m != nil && p != nil {
 			m.ObserveCommit(p.Status().CommitTook)

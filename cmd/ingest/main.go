@@ -225,7 +225,11 @@ func replayFile(ctx context.Context, cfg config.Config, dir, path, rejectsPath, 
 		return err
 	}
 	defer rf.Close()
-	p, err := pipeline.New(st, pipeline.FromConfig(cfg), rf, log)
+	pcfg := pipeline.FromConfig(cfg)
+	if pcfg.Pseudonyms, err = pipeline.PseudonymsFrom(cfg); err != nil {
+		return err
+	}
+	p, err := pipeline.New(st, pcfg, rf, log)
 	if err != nil {
 		return err
 	}
