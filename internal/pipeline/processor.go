@@ -618,8 +618,8 @@ func (p *Processor) Prune(ctx context.Context) (state.PruneReport, error) {
 		return state.PruneReport{}, nil
 	}
 	rep, err := p.store.Prune(ctx, latest)
-	if err == nil && rep.Deleted > 0 {
-		p.log.Info("pruned expired buckets", "keys", rep.Deleted)
+	if err == nil && rep.Buckets > 0 {
+		p.log.Info("pruned expired buckets", "buckets", rep.Buckets)
 	}
 	return rep, err
 }

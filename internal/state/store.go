@@ -651,77 +651,64 @@ func (r *Reader) Watermark() (maxSeen, floor int64, ok bool, err error) {
 
 // PruneReport says what Prune removed.
 type PruneReport struct {
-	Deleted int // counter keys deleted
+	Buckets int // expired buckets dropped
 }
 
-// Prune deletes the counter buckets that are older than their resolution's
+// Prune drops the counter buckets that are older than their resolution's
 // retention, measured back from latest (the largest event time seen, Unix
 // ns): a bucket of resolution r goes when its start is before latest −
 // retention(r). Queries already ignore such buckets, so pruning changes no
-// answer; it frees the disk (after compaction and value-log GC). It deletes
-// in transactions of bounded size and may be run at any time, repeatedly.
+// answer. The buckets are removed with Badger's DropPrefix, which rewrites
+// the tables holding them, so the data leaves the disk (not just gains a
+// delete marker). DropPrefix blocks writes while it runs: call Prune from the
+// goroutine that commits (Processor.Prune does), not concurrently with a
+// commit.
 func (s *Store) Prune(ctx context.Context, latest int64) (PruneReport, error) {
 	var rep PruneReport
-	for ri, r := range s.opt.Resolutions {
-		if r.Retention <= 0 {
-			continue
-		}
-		cut := latest/1e9 - int64(r.Retention/time.Second)
-		for _, f := range tally.Families {
-			for {
-				if err := ctx.Err(); err != nil {
-					return rep, err
-				}
-				n, err := s.deleteBefore(ri, f, cut, int(s.db.MaxBatchCount()/2))
-				rep.Deleted += n
-				if err != nil {
-					return rep, err
-				}
-				if n == 0 {
-					break
-				}
-			}
-		}
-	}
-	return rep, nil
-}
-
-// deleteBefore deletes up to max counter keys of (res, f) with bucket start
-// before cut, in one transaction.
-func (s *Store) deleteBefore(res int, f tally.Family, cut int64, max int) (int, error) {
-	var keys [][]byte
+	var prefixes [][]byte
 	err := s.db.View(func(txn *badger.Txn) error {
-		opts := badger.DefaultIteratorOptions
-		opts.PrefetchValues = false
-		prefix := []byte{prefixCounter, byte(res), byte(f)}
-		opts.Prefix = prefix
-		it := txn.NewIterator(opts)
-		defer it.Close()
-		end := counterKey(res, f, cut, 0)
-		for it.Rewind(); it.ValidForPrefix(prefix) && len(keys) < max; it.Next() {
-			k := it.Item().KeyCopy(nil)
-			if string(k) >= string(end) {
-				break
+		for ri, r := range s.opt.Resolutions {
+			if r.Retention <= 0 {
+				continue
 			}
-			keys = append(keys, k)
+			cut := latest/1e9 - int64(r.Retention/time.Second)
+			for _, f := range tally.Families {
+				if err := ctx.Err(); err != nil {
+					return err
+				}
+				opts := badger.DefaultIteratorOptions
+				opts.PrefetchValues = false
+				prefix := []byte{prefixCounter, byte(ri), byte(f)}
+				opts.Prefix = prefix
+				it := txn.NewIterator(opts)
+				end := counterKey(ri, f, cut, 0)
+				var last []byte
+				for it.Rewind(); it.ValidForPrefix(prefix); it.Next() {
+					k := it.Item().Key()
+					if string(k) >= string(end) {
+						break
+					}
+					if last == nil || string(k[:11]) != string(last) {
+						last = append([]byte(nil), k[:11]...)
+						prefixes = append(prefixes, last)
+					}
+				}
+				it.Close()
+			}
 		}
 		return nil
 	})
-	if err != nil || len(keys) == 0 {
-		return 0, err
+	if err != nil || len(prefixes) == 0 {
+		return rep, err
 	}
-	err = s.db.Update(func(txn *badger.Txn) error {
-		for _, k := range keys {
-			if err := txn.Delete(k); err != nil {
-				return err
-			}
-		}
-		return nil
-	})
-	if err != nil {
-		return 0, fmt.Errorf("state: prune: %w", err)
+	for _, p := range prefixes {
+		delete(s.deltas, blobID{int(p[1]), tally.Family(p[2]), bucketOfKey(append(p[:11:11], make([]byte, 8)...))})
 	}
-	return len(keys), nil
+	if err := s.db.DropPrefix(prefixes...); err != nil {
+		return rep, fmt.Errorf("state: prune: %w", err)
+	}
+	rep.Buckets = len(prefixes)
+	return rep, nil
 }
 
 // ReclaimSpace flattens the LSM tree and runs value-log GC until it finds

@@ -2,6 +2,8 @@ package state
 
 import (
 	"context"
+	"os"
+	"strings"
 	"testing"
 	"time"
 
@@ -90,10 +92,10 @@ func TestPrune(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	// 5m buckets at days 0..3 are older than one day before latest (4 keys);
-	// hour buckets at days 0..2 are older than two days (3 keys).
-	if rep.Deleted != 7 {
-		t.Errorf("deleted %d keys, want 7", rep.Deleted)
+	// 5m buckets at days 0..3 are older than one day before latest (4);
+	// hour buckets at days 0..2 are older than two days (3).
+	if rep.Buckets != 7 {
+		t.Errorf("dropped %d buckets, want 7", rep.Buckets)
 	}
 	r := s.NewReader()
 	defer r.Discard()
@@ -108,4 +110,70 @@ func TestPrune(t *testing.T) {
 	if err := s.ReclaimSpace(); err != nil {
 		t.Fatal(err)
 	}
+}
+
+// TestPruneFreesDisk (issue 6): expired buckets really leave the disk — the
+// store's files shrink after pruning and reclaiming.
+func TestPruneFreesDisk(t *testing.T) {
+	ctx := context.Background()
+	dir := t.TempDir()
+	o := DefaultOptions(dir)
+	o.Resolutions[0].Retention = 24 * time.Hour
+	o.Resolutions[1].Retention = 24 * time.Hour
+	s, err := Open(ctx, o)
+	if err != nil {
+		t.Fatal(err)
+	}
+	base := time.Date(2026, 10, 1, 0, 0, 0, 0, time.UTC)
+	for d := 0; d < 20; d++ { // 20 days of 5-minute buckets with wide tables
+		b := tally.NewBatch(300)
+		for m := 0; m < 288; m++ {
+			at := base.Add(time.Duration(d)*24*time.Hour + time.Duration(m)*5*time.Minute).UnixNano()
+			for c := 0; c < 20; c++ {
+				b.Add(tally.Credit, at, tally.Join("linear", "channel-number-"+string(rune('a'+c)), "some-campaign"), tally.Vec{1, 2, 3})
+			}
+		}
+		if _, err := s.Commit(ctx, &Commit{Counters: b}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	s.Close() // flush every memtable into tables
+	if s, err = Open(ctx, o); err != nil {
+		t.Fatal(err)
+	}
+	if err := s.ReclaimSpace(); err != nil {
+		t.Fatal(err)
+	}
+	before := dirSize(t, dir)
+	if _, err := s.Prune(ctx, base.Add(20*24*time.Hour).UnixNano()); err != nil {
+		t.Fatal(err)
+	}
+	if err := s.ReclaimSpace(); err != nil {
+		t.Fatal(err)
+	}
+	s.Close()
+	after := dirSize(t, dir)
+	if before == 0 {
+		t.Fatal("no table files before pruning: the test measures nothing")
+	}
+	t.Logf("store files: %d bytes before pruning, %d after", before, after)
+	if after >= before*3/4 {
+		t.Errorf("disk use %d → %d bytes: expired buckets did not leave the disk", before, after)
+	}
+}
+
+func dirSize(t *testing.T, dir string) int64 {
+	var n int64
+	entries, err := os.ReadDir(dir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, e := range entries {
+		if strings.HasSuffix(e.Name(), ".sst") { // values are kept in the tables (below Badger's value threshold)
+			if fi, err := e.Info(); err == nil {
+				n += fi.Size()
+			}
+		}
+	}
+	return n
 }
