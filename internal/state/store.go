@@ -702,7 +702,7 @@ func (s *Store) Prune(ctx context.Context, latest int64) (PruneReport, error) {
 		return rep, err
 	}
 	for _, p := range prefixes {
-		delete(s.deltas, blobID{int(p[1]), tally.Family(p[2]), bucketOfKey(append(p[:11:11], make([]byte, 8)...))})
+		delete(s.deltas, blobID{int(p[1]), tally.Family(p[2]), bucketOfKey(p)})
 	}
 	if err := s.db.DropPrefix(prefixes...); err != nil {
 		return rep, fmt.Errorf("state: prune: %w", err)

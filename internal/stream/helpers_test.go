@@ -217,6 +217,13 @@ func answersJSON(t testing.TB, dir string, from, to time.Time) string {
 	t.Helper()
 	st := openStore(t, dir)
 	defer st.Close()
+	return storeAnswers(t, st, from, to)
+}
+
+// storeAnswers is answersJSON from an open store (a live worker's: Badger
+// allows readers beside the writer).
+func storeAnswers(t testing.TB, st *state.Store, from, to time.Time) string {
+	t.Helper()
 	q, err := query.NewQuerier(st, pipeline.QueryParams(config.Default()))
 	if err != nil {
 		t.Fatal(err)

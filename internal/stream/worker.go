@@ -60,6 +60,18 @@ type Worker struct {
 	stalled      atomic.Bool
 	repositions  atomic.Int64
 	started      atomic.Bool
+
+	// Requests for the processor from other goroutines (erasure): Run
+	// executes them on its own goroutine, between two chunks of input.
+	cmds    chan *command
+	stopped chan struct{} // closed when Run returns
+}
+
+// command is a function Run executes with the processor on its goroutine.
+type command struct {
+	fn   func(ctx context.Context, p *pipeline.Processor) error
+	err  error
+	done chan struct{}
 }
 
 type delivery struct {
@@ -82,8 +94,10 @@ func NewWorker(js jetstream.JetStream, cfg Config, parts Partitions, log *slog.L
 		js: js, cfg: cfg, parts: parts,
 		log:    log.With("consumer", ConsumerName(parts)),
 		dead:   NewDeadLetters(js, cfg),
-		name:   ConsumerName(parts),
-		source: cfg.SourceName(parts),
+		name:    ConsumerName(parts),
+		source:  cfg.SourceName(parts),
+		cmds:    make(chan *command),
+		stopped: make(chan struct{}),
 	}
 	return w, nil
 }
@@ -185,6 +199,7 @@ func (w *Worker) Run(ctx context.Context, p *pipeline.Processor) error {
 	if !w.started.CompareAndSwap(false, true) {
 		return ErrWorkerStarted
 	}
+	defer close(w.stopped)
 	cp, err := p.Begin(w.source)
 	if err != nil {
 		return err
@@ -257,6 +272,15 @@ loop:
 				runErr = err
 				break loop
 			}
+		case c := <-w.cmds:
+			c.err = c.fn(pctx, p)
+			close(c.done)
+			if c.err != nil {
+				// The processor failed (its store could not be read or
+				// written): stop as a failed Offer would.
+				runErr = c.err
+				break loop
+			}
 		}
 	}
 	stopFetch()
@@ -276,6 +300,42 @@ loop:
 	st := p.Status()
 	w.log.Info("stopped", "next", st.Next, "accepted", st.Counts.Accepted, "buffered", st.Buffered)
 	return nil
+}
+
+// ErrWorkerStopped is returned by Forget when Run has ended.
+var ErrWorkerStopped = errors.New("stream: the worker has stopped")
+
+// do runs fn with the processor on Run's goroutine, between two chunks of
+// input, and returns its error. It waits for Run to start; it fails with
+// ErrWorkerStopped once Run has returned, or with ctx's error. An error
+// from fn also ends Run (the processor is not usable after a failed read
+// or commit of its store).
+func (w *Worker) do(ctx context.Context, fn func(ctx context.Context, p *pipeline.Processor) error) error {
+	c := &command{fn: fn, done: make(chan struct{})}
+	select {
+	case w.cmds <- c:
+	case <-w.stopped:
+		return ErrWorkerStopped
+	case <-ctx.Done():
+		return fmt.Errorf("stream: %w", ctx.Err())
+	}
+	<-c.done // Run executes a received command at once
+	return c.err
+}
+
+// Forget erases a person on the running worker: Processor.Forget on Run's
+// goroutine (the processor is not safe for concurrent use), committed
+// before it returns. id is the raw user id; the processor pseudonymises it
+// like input when a key is configured. Purging the person's messages from
+// the stream is Purge's job (ServeAdmin does both).
+func (w *Worker) Forget(ctx context.Context, id string) (pipeline.ForgetReport, error) {
+	var rep pipeline.ForgetReport
+	err := w.do(ctx, func(ctx context.Context, p *pipeline.Processor) error {
+		var err error
+		rep, err = p.Forget(ctx, id)
+		return err
+	})
+	return rep, err
 }
 
 // ErrStreamBehind is returned by Run when the stream ends before the
