@@ -67,6 +67,16 @@ HTTP (--http, default 127.0.0.1:9464; "off" disables): /metrics
 shift, transitions, paths, funnel, alerts, status). The worker also answers
 query --nats for its partitions.
 
+Feeds on NATS: each abandonment alert that opens or closes is published
+once to tl.alert.<name> (the alert as query alerts shows it, with "event":
+"opened" or "closed" and the worker's "partitions"), judged on final
+intervals only (ending a session gap before the watermark); what was
+announced is kept in DIR/feeds.json across restarts. Every --report-interval
+(default 1m; 0 disables) a credit snapshot per model over --report-window
+(default 7d) goes to tl.report.credit. Erasure: the worker answers
+tl.admin.forget ({"user": "ID"}; query forget --nats) by deleting the
+person's state and purging their messages from TL_EVENTS.
+
 Replay reads one JSON event per line (FILE "-" reads standard input; gzip is
 recognised), orders events by event time within the allowed lateness, splits
 them into sessions and journeys, credits channels under every rule-based model
@@ -224,6 +234,7 @@ func replayFile(ctx context.Context, cfg config.Config, dir, path, rejectsPath, 
 	if err != nil {
 		return err
 	}
+	rf.Rotate(int64(cfg.Rejects.MaxMiB)<<20, cfg.Rejects.Keep)
 	defer rf.Close()
 	pcfg := pipeline.FromConfig(cfg)
 	if pcfg.Pseudonyms, err = pipeline.PseudonymsFrom(cfg); err != nil {

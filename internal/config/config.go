@@ -108,6 +108,16 @@ type Limits struct {
 	MaxName int `yaml:"max_name"`
 }
 
+// Rejects configures rotation of the replay rejects file.
+type Rejects struct {
+	// MaxMiB: when a replay starts and the rejects file is larger, it is
+	// renamed to FILE.1 (older ones shift up) and a new one begins. 0 never
+	// rotates. Default 64.
+	MaxMiB int `yaml:"max_mib"`
+	// Keep is how many rotated files are kept. Default 3.
+	Keep int `yaml:"keep"`
+}
+
 // Privacy configures keyed pseudonyms for user ids (internal/privacy).
 type Privacy struct {
 	// KeyFile is a file holding the pseudonymisation key (at least 32 bytes,
@@ -191,6 +201,8 @@ type Config struct {
 	Limits Limits `yaml:"limits"`
 	// Privacy configures pseudonymous user ids.
 	Privacy Privacy `yaml:"privacy"`
+	// Rejects configures the replay rejects file.
+	Rejects Rejects `yaml:"rejects"`
 }
 
 // Default returns the documented defaults.
@@ -237,6 +249,7 @@ func Default() Config {
 			CommitInterval: Duration(time.Second),
 		},
 		Privacy: Privacy{KeyVersion: 1},
+		Rejects: Rejects{MaxMiB: 64, Keep: 3},
 		Limits:  Limits{MaxPayload: 64 << 10, MaxID: 128, MaxUser: 256, MaxName: 128},
 	}
 }

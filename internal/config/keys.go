@@ -50,6 +50,9 @@ var keyDocs = []struct{ Key, Doc string }{
 	{"privacy", `Keyed pseudonyms for user ids.`},
 	{"privacy.key_file", `File with the pseudonymisation key (>= 32 bytes or 64 hex digits, mode 600); empty stores raw ids unless TOUCHLEDGER_KEY_FILE is set.`},
 	{"privacy.key_version", `Version written into every pseudonym; raise it when rotating the key.`},
+	{"rejects", `Rotation of the replay rejects file.`},
+	{"rejects.max_mib", `Rotate the rejects file at the start of a replay when it is larger than this; 0 never rotates.`},
+	{"rejects.keep", `Rotated rejects files kept.`},
 }
 
 // keyDoc returns the explanation of a dotted key.

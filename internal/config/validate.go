@@ -83,6 +83,8 @@ func (c Config) Validate() error {
 	}
 
 	v.atLeast("privacy.key_version", c.Privacy.KeyVersion, 1)
+	v.atLeast("rejects.max_mib", c.Rejects.MaxMiB, 0)
+	v.atLeast("rejects.keep", c.Rejects.Keep, 1)
 
 	s := c.Store
 	v.resolutions(s.Resolutions)

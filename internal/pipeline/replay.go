@@ -189,9 +189,12 @@ func readLine(br *bufio.Reader, dst []byte, limit int) ([]byte, error) {
 //
 // with "base64" instead of "text" when the original is not valid UTF-8.
 type RejectFile struct {
-	f   *os.File
-	w   *bufio.Writer
-	off int64
+	f    *os.File
+	w    *bufio.Writer
+	off  int64
+	path string
+	max  int64 // rotate at start when the committed file is larger; 0 = never
+	keep int   // rotated files kept (path.1 … path.keep)
 }
 
 // OpenRejectFile opens (creating) path for appending rejects.
@@ -200,18 +203,36 @@ func OpenRejectFile(path string) (*RejectFile, error) {
 	if err != nil {
 		return nil, fmt.Errorf("open rejects file: %w", err)
 	}
-	return &RejectFile{f: f, w: bufio.NewWriterSize(f, 64<<10)}, nil
+	return &RejectFile{f: f, w: bufio.NewWriterSize(f, 64<<10), path: path}, nil
 }
 
+// Rotate sets rotation: when the committed file is larger than maxBytes at
+// start (Reset), it is renamed to path.1 (older ones shift up to path.keep,
+// the oldest is removed) and a new file begins. Only committed records are
+// ever rotated, so a crash between the rename and the next commit is
+// recognised by path.1 having exactly the committed length.
+func (r *RejectFile) Rotate(maxBytes int64, keep int) { r.max, r.keep = maxBytes, keep }
+
 // Reset truncates the file to mark, dropping records written after the last
-// commit (they will be written again when their inputs are read again).
+// commit (they will be written again when their inputs are read again), and
+// rotates the file if it has grown past the limit.
 func (r *RejectFile) Reset(mark int64) error {
 	st, err := r.f.Stat()
 	if err != nil {
 		return err
 	}
 	if st.Size() < mark {
-		return fmt.Errorf("rejects file %s is shorter (%d bytes) than committed (%d bytes): it was changed outside touchledger", r.f.Name(), st.Size(), mark)
+		if prev, err := os.Stat(r.path + ".1"); err == nil && prev.Size() == mark && st.Size() == 0 {
+			mark = 0 // rotated after the last commit: the new file starts empty
+		} else {
+			return fmt.Errorf("rejects file %s is shorter (%d bytes) than committed (%d bytes): it was changed outside touchledger", r.f.Name(), st.Size(), mark)
+		}
+	}
+	if r.max > 0 && mark > r.max {
+		if err := r.rotate(mark); err != nil {
+			return fmt.Errorf("rotate rejects file: %w", err)
+		}
+		mark = 0
 	}
 	if err := r.f.Truncate(mark); err != nil {
 		return err
@@ -249,6 +270,32 @@ func (r *RejectFile) Reject(pos uint64, reason event.Reason, msg string, payload
 	n, err := r.w.Write(b)
 	r.off += int64(n)
 	return err
+}
+
+// rotate truncates the file to the committed length, shifts the rotated
+// files and starts a new one.
+func (r *RejectFile) rotate(mark int64) error {
+	if err := r.f.Truncate(mark); err != nil {
+		return err
+	}
+	if err := r.f.Sync(); err != nil {
+		return err
+	}
+	keep := max(r.keep, 1)
+	os.Remove(fmt.Sprintf("%s.%d", r.path, keep))
+	for i := keep - 1; i >= 1; i-- {
+		os.Rename(fmt.Sprintf("%s.%d", r.path, i), fmt.Sprintf("%s.%d", r.path, i+1))
+	}
+	if err := os.Rename(r.path, r.path+".1"); err != nil {
+		return err
+	}
+	r.f.Close()
+	f, err := os.OpenFile(r.path, os.O_RDWR|os.O_CREATE|os.O_TRUNC, 0o640)
+	if err != nil {
+		return err
+	}
+	r.f = f
+	return nil
 }
 
 // Sync flushes and fsyncs, returning the file length.
