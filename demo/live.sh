@@ -16,7 +16,7 @@ go run ./cmd/demo --out "$dir/demo-events.jsonl" --truth "$dir/truth.json"
 "$dir/ingest" --config demo/touchledger.yaml --data "$dir/store" --port "$port" --http "$http" 2>"$dir/worker.log" &
 worker=$!
 trap 'kill -TERM $worker 2>/dev/null; wait $worker 2>/dev/null' EXIT INT TERM
-for _ in $(seq 50); do curl -fs "http://$http/healthz" >/dev/null 2>&1 && break; sleep 0.2; done
+for _ in $(seq 100); do grep -q '^worker:' "$dir/worker.log" 2>/dev/null && break; sleep 0.2; done
 echo "worker running: dashboard http://$http/  ·  JSON http://$http/api/credit?model=linear  ·  metrics http://$http/metrics"
 echo "log: $dir/worker.log"
 "$dir/ingest" send --nats "nats://127.0.0.1:$port" --rate 20000 "$dir/demo-events.jsonl"
