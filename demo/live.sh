@@ -13,10 +13,11 @@ mkdir -p "$dir"
 go build -o "$dir/ingest" ./cmd/ingest
 go build -o "$dir/query" ./cmd/query
 go run ./cmd/demo --out "$dir/demo-events.jsonl" --truth "$dir/truth.json"
-"$dir/ingest" --config demo/touchledger.yaml --data "$dir/store" --port "$port" --http "$http" 2>"$dir/worker.log" &
+"$dir/ingest" --config demo/touchledger.yaml --data "$dir/store" --port "$port" --http "$http" >"$dir/worker.out" 2>"$dir/worker.log" &
 worker=$!
 trap 'kill -TERM $worker 2>/dev/null; wait $worker 2>/dev/null' EXIT INT TERM
-for _ in $(seq 100); do grep -q '^worker:' "$dir/worker.log" 2>/dev/null && break; sleep 0.2; done
+for _ in $(seq 150); do grep -q '^worker:' "$dir/worker.out" 2>/dev/null && break; sleep 0.2; done
+cat "$dir/worker.out"
 echo "worker running: dashboard http://$http/  ·  JSON http://$http/api/credit?model=linear  ·  metrics http://$http/metrics"
 echo "log: $dir/worker.log"
 "$dir/ingest" send --nats "nats://127.0.0.1:$port" --rate 20000 "$dir/demo-events.jsonl"
