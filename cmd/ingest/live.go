@@ -7,6 +7,7 @@ import (
 	"fmt"
 	"io"
 	"log/slog"
+	"math"
 	"net/http"
 	"os"
 	"path/filepath"
@@ -20,6 +21,7 @@ import (
 
 	"github.com/touchledger/touchledger/internal/config"
 	"github.com/touchledger/touchledger/internal/dashboard"
+	"github.com/touchledger/touchledger/internal/feed"
 	"github.com/touchledger/touchledger/internal/metrics"
 	"github.com/touchledger/touchledger/internal/pipeline"
 	"github.com/touchledger/touchledger/internal/query"
@@ -69,6 +71,29 @@ type liveFlags struct {
 	httpToken    string
 	logFormat    string
 	shutdownWait time.Duration
+	// Feeds on NATS (internal/feed).
+	reportInterval time.Duration
+	reportWindow   time.Duration
+}
+
+// durationFlag is a flag taking the configuration's duration syntax
+// ("30m", "7d", "1d12h", "0").
+type durationFlag struct{ d *time.Duration }
+
+func (f durationFlag) String() string {
+	if f.d == nil {
+		return ""
+	}
+	return config.Duration(*f.d).String()
+}
+
+func (f durationFlag) Set(s string) error {
+	d, err := config.ParseDuration(s)
+	if err != nil {
+		return err
+	}
+	*f.d = d
+	return nil
 }
 
 func addLiveFlags(fs *flag.FlagSet, l *liveFlags) {
@@ -89,6 +114,9 @@ func addLiveFlags(fs *flag.FlagSet, l *liveFlags) {
 	fs.StringVar(&l.httpToken, "http-token", "", "bearer `token` required on HTTP (default $TL_HTTP_TOKEN; needed to listen beyond loopback)")
 	fs.StringVar(&l.logFormat, "log-format", "text", "log `format` on standard error: text or json")
 	fs.DurationVar(&l.shutdownWait, "shutdown-timeout", 10*time.Second, "longest wait for HTTP requests when stopping")
+	l.reportInterval, l.reportWindow = feed.DefaultReportInterval, feed.DefaultReportWindow
+	fs.Var(durationFlag{&l.reportInterval}, "report-interval", "publish a credit snapshot per model to <prefix>.report.credit this often (0 disables)")
+	fs.Var(durationFlag{&l.reportWindow}, "report-window", "rolling `window` of the credit snapshots, ending at the latest event")
 }
 
 // runLive is live mode: consume the stream into dir until ctx ends.
@@ -102,6 +130,9 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 	}
 	if err := l.scfg.Validate(); err != nil {
 		return err
+	}
+	if l.reportWindow <= 0 {
+		return errors.New("--report-window must be positive")
 	}
 	if l.httpAddr != "off" && l.httpAddr != "" {
 		if err := web.CheckListen(l.httpAddr, l.httpToken); err != nil {
@@ -138,10 +169,7 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 	if err != nil {
 		return err
 	}
-	sctx, cancel := context.WithTimeout(ctx, 30*time.Second)
-	err = stream.EnsureStream(sctx, js, l.scfg)
-	cancel()
-	if err != nil {
+	if err := ensureStream(ctx, js, l.scfg, log); err != nil {
 		return err
 	}
 
@@ -238,8 +266,48 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 		return err
 	}
 	defer svc.Stop()
+
+	// Erasure requests (<prefix>.admin.forget), handed to the processing
+	// goroutine.
+	admin, err := w.ServeAdmin(nc, log)
+	if err != nil {
+		return err
+	}
+	defer admin.Unsubscribe()
+
+	// Feeds: alert transitions and credit snapshots, from store snapshots
+	// on their own goroutine. The start rule looks at the committed data
+	// as it is before the worker consumes.
+	fo := feed.Options{
+		Conn:           nc,
+		Prefix:         l.scfg.Prefix,
+		Partitions:     parts.String(),
+		Open:           openQuerier,
+		Watermark:      func() time.Time { return p.Status().Watermark },
+		SessionGap:     cfg.SessionGap.D(),
+		Interval:       cfg.Alert.Interval.D(),
+		Lookback:       cfg.Alert.Baseline.D(),
+		StateFile:      filepath.Join(dir, "feeds.json"),
+		ReportInterval: l.reportInterval,
+		ReportWindow:   l.reportWindow,
+		Log:            log.With("from", "feed"),
+	}
+	if wm, _ := p.Watermark(); wm != math.MinInt64 {
+		fo.StartWatermark = time.Unix(0, wm).UTC()
+	}
+	fd, err := feed.Start(ctx, fo)
+	if err != nil {
+		return err
+	}
+	defer fd.Stop()
 	fmt.Fprintf(stdout, "worker: partitions %s of %d, stream %s, consumer %s, data %s\n",
 		parts, l.scfg.Partitions, l.scfg.Stream, w.Consumer(), dir)
+	reports := "off"
+	if l.reportInterval > 0 {
+		reports = fmt.Sprintf("every %s over %s", config.Duration(l.reportInterval), config.Duration(l.reportWindow))
+	}
+	fmt.Fprintf(stdout, "feeds: alerts on %s.alert.<name>, credit on %s (%s); erasure requests on %s\n",
+		l.scfg.Prefix, feed.ReportSubject(l.scfg.Prefix), reports, stream.ForgetSubject(l.scfg.Prefix))
 	if f, ok := stdout.(*os.File); ok {
 		f.Sync()
 	}
@@ -253,6 +321,29 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 	fmt.Fprintf(stdout, "stopped: accepted %d, duplicate %d, rejected %d, late %d, buffered %d (ran %s)\n",
 		c.Accepted, c.Duplicate, c.RejectedTotal(), c.Late, s.Buffered, time.Since(start).Round(time.Second))
 	return nil
+}
+
+// ensureStream creates or updates the streams, retrying for up to
+// stream.StartRetry while a cluster elects its JetStream leader (requests
+// then fail with "not available" or time out).
+func ensureStream(ctx context.Context, js jetstream.JetStream, cfg stream.Config, log *slog.Logger) error {
+	deadline := time.Now().Add(stream.StartRetry)
+	wait := 200 * time.Millisecond
+	for {
+		sctx, cancel := context.WithTimeout(ctx, 10*time.Second)
+		err := stream.EnsureStream(sctx, js, cfg)
+		cancel()
+		if err == nil || ctx.Err() != nil || time.Now().After(deadline) {
+			return err
+		}
+		log.Warn("creating the streams; retrying", "err", err, "in", wait)
+		select {
+		case <-time.After(wait):
+		case <-ctx.Done():
+			return ctx.Err()
+		}
+		wait = min(2*wait, 5*time.Second)
+	}
 }
 
 // drain flushes the connection (the last acknowledgements) and closes it.

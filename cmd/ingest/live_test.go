@@ -16,7 +16,11 @@ import (
 	"testing"
 	"time"
 
+	"github.com/nats-io/nats.go"
+
 	"github.com/touchledger/touchledger/demo/shop"
+	"github.com/touchledger/touchledger/internal/feed"
+	"github.com/touchledger/touchledger/internal/stream"
 )
 
 func TestUsage(t *testing.T) {
@@ -34,6 +38,8 @@ func TestUsage(t *testing.T) {
 		{[]string{"--data", dir, "--partition-count", "0", "--http", "off", "--port", "0"}, 1, []string{"partitions 0 not in"}},
 		{[]string{"--data", dir, "--http", "0.0.0.0:9464", "--port", "0"}, 1, []string{"refusing to serve"}},
 		{[]string{"--data", dir, "--log-format", "xml"}, 2, []string{"--log-format"}},
+		{[]string{"--data", dir, "--report-interval", "soon"}, 2, []string{"invalid duration"}},
+		{[]string{"--data", dir, "--report-window", "0", "--http", "off", "--port", "0"}, 1, []string{"--report-window must be positive"}},
 	}
 	for _, tt := range tests {
 		var out, errOut bytes.Buffer
@@ -71,7 +77,8 @@ func TestLiveCommand(t *testing.T) {
 	if err := os.WriteFile(cfgFile, []byte("lateness: 1s\nstore:\n  commit_interval: 200ms\n"), 0o644); err != nil {
 		t.Fatal(err)
 	}
-	worker := exec.Command(bin, "--data", t.TempDir(), "--port", "0", "--http", "127.0.0.1:0", "--config", cfgFile, "--quiet-after", "200ms")
+	worker := exec.Command(bin, "--data", t.TempDir(), "--port", "0", "--http", "127.0.0.1:0", "--config", cfgFile, "--quiet-after", "200ms",
+		"--report-interval", "300ms", "--report-window", "30d")
 	stdout, err := worker.StdoutPipe()
 	if err != nil {
 		t.Fatal(err)
@@ -141,6 +148,40 @@ func TestLiveCommand(t *testing.T) {
 	}
 	if m := get("/metrics"); !strings.Contains(m, "touchledger_consumer_lag_messages 0") || !strings.Contains(m, "touchledger_buffered_events 0") {
 		t.Errorf("/metrics: want lag 0 and nothing buffered:\n%.2000s", m)
+	}
+
+	// Feeds and erasure are wired: a credit snapshot per model arrives, and
+	// an erasure request is answered by the owner of the partition.
+	nc, err := nats.Connect(natsURL)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer nc.Close()
+	sub, err := nc.SubscribeSync("tl.report.credit")
+	if err != nil {
+		t.Fatal(err)
+	}
+	models := map[string]bool{}
+	for len(models) < len(feed.AllModels()) {
+		m, err := sub.NextMsg(5 * time.Second)
+		if err != nil {
+			t.Fatalf("credit snapshots of %d models: %v", len(models), err)
+		}
+		var c feed.CreditMessage
+		if err := json.Unmarshal(m.Data, &c); err != nil || c.Window != "30d" || c.Partitions != "0-15" || c.Conversions != int64(st.Conversions) {
+			t.Fatalf("snapshot %s (%v): want window 30d, partitions 0-15, %d conversions", m.Data, err, st.Conversions)
+		}
+		models[c.ModelID] = true
+	}
+	user := regexp.MustCompile(`"user":"([^"]+)"`).FindSubmatch(buf.Bytes())[1]
+	body, _ := json.Marshal(stream.ForgetRequest{User: string(user)})
+	m, err := nc.Request(stream.ForgetSubject("tl"), body, 10*time.Second)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var rep stream.ForgetReply
+	if err := json.Unmarshal(m.Data, &rep); err != nil || rep.ForgetReport == nil || !rep.HadState || !rep.Owner || rep.Purged == 0 {
+		t.Errorf("erasure reply %s (%v)", m.Data, err)
 	}
 	worker.Process.Signal(syscall.SIGTERM)
 	summary := <-rest

@@ -45,6 +45,7 @@ Usage:
   query funnel      SOURCE [window] [--format F]
   query alerts      SOURCE [window] [--points] [--format F]
   query status      SOURCE [window] [--format F]
+  query forget      SOURCE --user ID [--format F]
 
 SOURCE is exactly one of:
   --data DIR         the data directory of a stopped worker
@@ -66,7 +67,12 @@ status       what the data directory holds
 scorecard    each model's credit next to a simulated world's true incremental
              conversions (demo --truth FILE), with the distance between them
 forget       erase a person: their stored session, journey and de-duplication
-             state (aggregate counters hold no identifiers and stay)
+             state (aggregate counters hold no identifiers and stay). With
+             --data, in a stopped worker's directory; with --nats, every
+             running worker erases them (tl.admin.forget, which needs the
+             admin's credentials in deploy/), the owner of their partition
+             also purges their messages from the stream, and each worker's
+             answer is shown; --timeout defaults to 10s here
 
 Window (over conversion time, [from, to)):
   --last 7d          the 7 days up to the latest event seen (default 30d)
@@ -186,8 +192,27 @@ func run(args []string, stdout, stderr io.Writer) int {
 		if *user == "" {
 			return fail(2, errors.New("--user ID is required"))
 		}
-		if *dataDir == "" {
-			return fail(2, errors.New("forget works on a stopped worker's --data directory"))
+		if *natsURL != "" {
+			wait := *timeout
+			if !flagSet(fs, "timeout") {
+				wait = forgetTimeout
+			}
+			if wait <= 0 {
+				return fail(2, fmt.Errorf("--timeout must be positive, got %v", wait))
+			}
+			if *partitions < 1 {
+				return fail(2, fmt.Errorf("--partitions must be at least 1, got %d", *partitions))
+			}
+			opts, err := natsOptions(*natsCreds, *natsUser, *natsPass, *natsToken, wait)
+			if err != nil {
+				return fail(2, err)
+			}
+			nc, err := nats.Connect(*natsURL, opts...)
+			if err != nil {
+				return fail(1, fmt.Errorf("connect to NATS at %s: %w", redact(*natsURL), err))
+			}
+			defer nc.Close()
+			return forgetLive(nc, *prefix, *partitions, wait, *user, f, stdout, stderr, fail)
 		}
 		return forget(*dataDir, *user, cfg, f, stdout, fail)
 	}

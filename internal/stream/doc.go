@@ -55,6 +55,24 @@
 // late; with lateness 0 an event is visible after the next event or, at the
 // end of a burst, after QuietAfter.
 //
+// # Erasure on a running worker
+//
+// The processor is not safe for concurrent use, so requests for it from
+// other goroutines go through a command channel that Run serves between two
+// chunks of input (Worker.Forget). ServeAdmin answers erasure requests on
+// <prefix>.admin.forget ({"user": "<raw id>"}; every worker, no queue
+// group): Processor.Forget deletes the person's session, journey and
+// de-duplication state in a commit and drops their events arriving within
+// the lateness afterwards; then the worker owning the person's partition
+// (PartitionOf: FNV-1a 32 of the user key modulo the partition count, the
+// server's partition function) purges their messages from the events
+// stream with the subject filter <prefix>.ev.*.*.<ukey> (UserFilter) and
+// reports how many it deleted (ForgetReply). Purging is safe for exactly
+// once: messages below the committed checkpoint were applied already, and
+// purged messages above it are never delivered, so the consumer's delivery
+// sequence stays gapless. Dead letters are not purged (their subjects carry
+// the reason, not the user).
+//
 // # Bounds
 //
 // In flight: one pull request (FetchBatch messages) plus Config.InFlight

@@ -159,6 +159,7 @@ type inflight struct {
 	f   jetstream.PubAckFuture
 	msg *nats.Msg
 	id  string
+	at  time.Time // when it was published: its acknowledgement is due by at + AckTimeout
 }
 
 type sender struct {
@@ -241,7 +242,7 @@ func (s *sender) publish(dec *event.Decoder, payload []byte, lineNo int64) error
 			return err
 		}
 	} else {
-		s.queue = append(s.queue, inflight{f: f, msg: msg, id: id})
+		s.queue = append(s.queue, inflight{f: f, msg: msg, id: id, at: time.Now()})
 	}
 	if s.o.Progress != nil && s.stats.Lines&255 == 0 && time.Since(s.lastDraw) >= 200*time.Millisecond {
 		s.draw(false)
@@ -276,10 +277,15 @@ func (s *sender) settleOldest() error {
 		return nil
 	case ferr = <-p.f.Err():
 	default:
+		// The deadline counts from the publication, not from now: when a
+		// node fails, the acknowledgements of every message in flight are
+		// lost together, and they time out together instead of one
+		// AckTimeout after another.
+		wait := max(time.Until(p.at.Add(s.o.AckTimeout)), 0)
 		if s.timer == nil {
-			s.timer = time.NewTimer(s.o.AckTimeout)
+			s.timer = time.NewTimer(wait)
 		} else {
-			s.timer.Reset(s.o.AckTimeout)
+			s.timer.Reset(wait)
 		}
 		select {
 		case ack := <-p.f.Ok():

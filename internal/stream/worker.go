@@ -92,8 +92,8 @@ func NewWorker(js jetstream.JetStream, cfg Config, parts Partitions, log *slog.L
 	}
 	w := &Worker{
 		js: js, cfg: cfg, parts: parts,
-		log:    log.With("consumer", ConsumerName(parts)),
-		dead:   NewDeadLetters(js, cfg),
+		log:     log.With("consumer", ConsumerName(parts)),
+		dead:    NewDeadLetters(js, cfg),
 		name:    ConsumerName(parts),
 		source:  cfg.SourceName(parts),
 		cmds:    make(chan *command),
@@ -191,7 +191,10 @@ var ErrWorkerStarted = errors.New("stream: worker already started")
 // source (resuming from its checkpoint), repositions the consumer, and
 // offers every new message in stream order; every TickInterval it calls
 // p.Tick so a quiet partition still releases buffered events and commits on
-// time. On cancellation it stops fetching, lets event time catch up with
+// time. Between two chunks it runs the commands other goroutines hand it
+// (Forget). Reaching the stream and positioning the consumer at start are
+// retried for up to StartRetry (a cluster electing its leaders). On
+// cancellation it stops fetching, lets event time catch up with
 // the wall clock once more and commits with Finish(ctx, false) — buffered
 // events stay buffered (persisted), nothing is drained — then returns nil.
 // The caller closes p afterwards.
@@ -211,10 +214,7 @@ func (w *Worker) Run(ctx context.Context, p *pipeline.Processor) error {
 		return err
 	}
 	start := max(cp.Next, 1)
-	if err := w.checkStream(ctx, start); err != nil {
-		return err
-	}
-	cons, err := w.position(ctx, start)
+	cons, err := w.begin(ctx, start)
 	if err != nil {
 		return err
 	}
@@ -338,6 +338,34 @@ func (w *Worker) Forget(ctx context.Context, id string) (pipeline.ForgetReport, 
 	return rep, err
 }
 
+// StartRetry bounds how long Run retries reaching the stream and
+// positioning its consumer at start: a cluster that is electing its
+// leaders answers API requests with timeouts or "not available" for a
+// while (seconds, typically).
+const StartRetry = 2 * time.Minute
+
+// begin checks the stream and positions the consumer at start, retrying
+// failures other than ErrStreamBehind for up to StartRetry.
+func (w *Worker) begin(ctx context.Context, start uint64) (jetstream.Consumer, error) {
+	deadline := time.Now().Add(StartRetry)
+	backoff := 200 * time.Millisecond
+	for {
+		err := w.checkStream(ctx, start)
+		if err == nil {
+			var cons jetstream.Consumer
+			if cons, err = w.position(ctx, start); err == nil {
+				return cons, nil
+			}
+		}
+		if errors.Is(err, ErrStreamBehind) || ctx.Err() != nil || time.Now().After(deadline) {
+			return nil, err
+		}
+		w.log.Warn("reaching the stream; retrying", "err", err, "in", backoff)
+		sleep(ctx, backoff)
+		backoff = min(2*backoff, 5*time.Second)
+	}
+}
+
 // ErrStreamBehind is returned by Run when the stream ends before the
 // committed checkpoint: the stream was deleted and created again (its
 // sequences restarted), so its new messages would be skipped as read.
@@ -397,11 +425,14 @@ func (w *Worker) position(ctx context.Context, seq uint64) (jetstream.Consumer, 
 			return cons, nil
 		}
 	}
-	if ctx.Err() != nil {
-		return nil, fmt.Errorf("position consumer %s: %w", w.name, ctx.Err())
+	if ctx.Err() != nil || errors.Is(err, context.DeadlineExceeded) || errors.Is(err, nats.ErrTimeout) {
+		// Unanswered (a cluster electing a leader): the caller retries.
+		return nil, fmt.Errorf("position consumer %s: %w", w.name, err)
 	}
-	// Older servers have no consumer reset, and a consumer created by that
-	// path starts at a fixed sequence: create it again from seq.
+	// The server refused: older servers have no consumer reset, and a
+	// consumer created by this path starts at a fixed sequence (which an
+	// update to DeliverAll, or a reset below it, is refused for): create it
+	// again from seq.
 	w.log.Info("re-creating the consumer to reposition it", "seq", seq, "reason", err)
 	if err := w.js.DeleteConsumer(ctx, w.cfg.Stream, w.name); err != nil && !errors.Is(err, jetstream.ErrConsumerNotFound) {
 		return nil, fmt.Errorf("position consumer %s: delete: %w", w.name, err)
