@@ -183,6 +183,13 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 			err = cerr
 		}
 	}()
+	ps, err := pipeline.PseudonymsFrom(cfg)
+	if err != nil {
+		return err
+	}
+	if ps != nil {
+		l.scfg.SubjectUser = ps.Pseudonym // erasure finds subjects by the pseudonym's key
+	}
 	w, err := stream.NewWorker(js, l.scfg, parts, log)
 	if err != nil {
 		return err
@@ -192,9 +199,7 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 		m *metrics.Metrics
 	)
 	pcfg := pipeline.FromConfig(cfg)
-	if pcfg.Pseudonyms, err = pipeline.PseudonymsFrom(cfg); err != nil {
-		return err
-	}
+	pcfg.Pseudonyms = ps
 	pcfg.OnCommit = func(string, pipeline.Checkpoint) {
 		if m != nil && p != nil {
 			m.ObserveCommit(p.Status().CommitTook)

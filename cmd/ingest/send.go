@@ -14,6 +14,7 @@ import (
 	"github.com/nats-io/nats.go"
 	"github.com/nats-io/nats.go/jetstream"
 
+	"github.com/touchledger/touchledger/internal/pipeline"
 	"github.com/touchledger/touchledger/internal/stream"
 )
 
@@ -46,6 +47,7 @@ func runSend(args []string, stdout, stderr io.Writer) int {
 	fs.StringVar(&o.Prefix, "prefix", o.Prefix, "subject `prefix`")
 	fs.Float64Var(&o.Rate, "rate", 0, "publish at most this many `events` per second (0 = as fast as the stream acknowledges)")
 	fs.IntVar(&o.MaxInFlight, "max-in-flight", o.MaxInFlight, "most `messages` published and not yet acknowledged")
+	cfgPath := fs.String("config", "", "configuration `file`: with privacy.key_file (or $TOUCHLEDGER_KEY_FILE) subjects carry the pseudonym's key, not the raw id's")
 	fs.Usage = func() {
 		fmt.Fprint(stderr, sendUsage)
 		fs.PrintDefaults()
@@ -59,6 +61,19 @@ func runSend(args []string, stdout, stderr io.Writer) int {
 	if fs.NArg() != 1 {
 		fmt.Fprintln(stderr, "ingest send: give one FILE (or - for standard input); see --help")
 		return 2
+	}
+	cfg, err := loadConfig(*cfgPath)
+	if err != nil {
+		fmt.Fprintf(stderr, "ingest send: %v\n", err)
+		return 2
+	}
+	ps, err := pipeline.PseudonymsFrom(cfg)
+	if err != nil {
+		fmt.Fprintf(stderr, "ingest send: %v\n", err)
+		return 2
+	}
+	if ps != nil {
+		o.SubjectUser = ps.Pseudonym
 	}
 	path := fs.Arg(0)
 	var in io.Reader = os.Stdin

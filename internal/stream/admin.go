@@ -158,7 +158,11 @@ func (w *Worker) serveForget(data []byte) ForgetReply {
 		rep.Error = fmt.Sprintf("forget request: user must be valid UTF-8 of at most %d bytes", maxForgetUser)
 		return rep
 	}
-	rep.Partition = PartitionOf(req.User, w.cfg.Partitions)
+	su := req.User
+	if w.cfg.SubjectUser != nil {
+		su = w.cfg.SubjectUser(su)
+	}
+	rep.Partition = PartitionOf(su, w.cfg.Partitions)
 	rep.Owner = rep.Partition >= w.parts.First && rep.Partition <= w.parts.Last
 	ctx, cancel := context.WithTimeout(context.Background(), ForgetTimeout)
 	defer cancel()
@@ -173,8 +177,8 @@ func (w *Worker) serveForget(data []byte) ForgetReply {
 	}
 	rep.ForgetReport = &fr
 	if rep.Owner {
-		rep.PurgeFilter = w.cfg.UserFilter(req.User)
-		n, err := PurgeUser(ctx, w.js, w.cfg, req.User)
+		rep.PurgeFilter = w.cfg.UserFilter(su)
+		n, err := PurgeUser(ctx, w.js, w.cfg, su)
 		if err != nil {
 			rep.Error = fmt.Sprintf("state erased, but the stream purge failed (send the request again): %v", err)
 		}

@@ -19,6 +19,10 @@ const (
 // Config names the stream layout and tunes the consumer. DefaultConfig
 // holds the documented defaults; flags and files set it at the edge.
 type Config struct {
+	// SubjectUser, if set, maps a raw user id to what subject user keys are
+	// computed from (the pseudonym when a key is configured; see
+	// SendOptions.SubjectUser). Erasure uses it to find a person's messages.
+	SubjectUser func(user string) string `json:"-"`
 	// Prefix is the first token of every subject (default "tl"):
 	// <prefix>.in.<kind>.<ukey> (publishers), <prefix>.ev.<partition>.<kind>.<ukey>
 	// (the stream), <prefix>.dead.<reason> (dead letters).

@@ -46,6 +46,11 @@ type SendOptions struct {
 	// Size is the input's size in bytes for the progress percentage; 0
 	// shows counts only.
 	Size int64
+	// SubjectUser, if set, maps a user id to what the subject's user key
+	// is computed from. With pseudonymisation on, pass the pseudonym
+	// function, so subjects carry no hash of the raw id (which anyone could
+	// recompute for a guessed id); the worker must use the same (Config).
+	SubjectUser func(user string) string
 }
 
 // DefaultSendOptions returns Send's defaults.
@@ -220,7 +225,11 @@ func (s *sender) publish(dec *event.Decoder, payload []byte, lineNo int64) error
 	s.stats.Lines++
 	var subject, id string
 	if e, err := dec.Decode(payload); err == nil {
-		subject, id = Subject(s.o.Prefix, e.Kind.String(), e.User), e.ID
+		u := e.User
+		if s.o.SubjectUser != nil {
+			u = s.o.SubjectUser(u)
+		}
+		subject, id = Subject(s.o.Prefix, e.Kind.String(), u), e.ID
 	} else {
 		var hex [16]byte
 		key := string(appendHex64(hex[:0], xxhash.Sum64(payload)))

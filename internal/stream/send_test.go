@@ -161,3 +161,24 @@ func TestStartEmbeddedPortTaken(t *testing.T) {
 		t.Errorf("took %v to notice the port in use", took)
 	}
 }
+
+// TestSendSubjectUser: with pseudonymisation, subjects carry the key of the
+// pseudonym, never a hash of the raw id (issue 6: ids are replaced before
+// they are used anywhere, subjects included).
+func TestSendSubjectUser(t *testing.T) {
+	b := startBus(t, DefaultConfig())
+	input := `{"id":"e1","user":"ann","time":"2026-10-01T00:00:00Z","kind":"touch","channel":"email"}`
+	pseudo := func(u string) string { return "p1-pseudonym-of-" + u }
+	if _, err := Send(context.Background(), b.js, strings.NewReader(input), SendOptions{SubjectUser: pseudo}); err != nil {
+		t.Fatal(err)
+	}
+	subjects, _, _ := storedSubjects(t, b)
+	if len(subjects) != 1 || !strings.HasSuffix(subjects[0], "."+UserKey(pseudo("ann"))) || strings.Contains(subjects[0], UserKey("ann")) {
+		t.Errorf("subjects %v: want the key of the pseudonym %s, not of the raw id %s", subjects, UserKey(pseudo("ann")), UserKey("ann"))
+	}
+	c := DefaultConfig()
+	c.SubjectUser = pseudo
+	if f := c.UserFilter(c.SubjectUser("ann")); !strings.HasSuffix(f, UserKey(pseudo("ann"))) {
+		t.Errorf("erasure filter %s does not use the pseudonym's key", f)
+	}
+}
