@@ -73,6 +73,7 @@ type liveFlags struct {
 	shutdownWait time.Duration
 	// Feeds on NATS (internal/feed).
 	reportInterval time.Duration
+	maintenance    time.Duration
 	reportWindow   time.Duration
 }
 
@@ -115,6 +116,8 @@ func addLiveFlags(fs *flag.FlagSet, l *liveFlags) {
 	fs.StringVar(&l.logFormat, "log-format", "text", "log `format` on standard error: text or json")
 	fs.DurationVar(&l.shutdownWait, "shutdown-timeout", 10*time.Second, "longest wait for HTTP requests when stopping")
 	l.reportInterval, l.reportWindow = feed.DefaultReportInterval, feed.DefaultReportWindow
+	l.maintenance = time.Hour
+	fs.Var(durationFlag{&l.maintenance}, "maintenance", "drop counter buckets past their retention and reclaim disk space this often (0 disables)")
 	fs.Var(durationFlag{&l.reportInterval}, "report-interval", "publish a credit snapshot per model to <prefix>.report.credit this often (0 disables)")
 	fs.Var(durationFlag{&l.reportWindow}, "report-window", "rolling `window` of the credit snapshots, ending at the latest event")
 }
@@ -279,6 +282,27 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 		return err
 	}
 	defer admin.Unsubscribe()
+
+	// Retention: expired buckets leave the store (and the disk) on schedule.
+	if l.maintenance > 0 {
+		go func() {
+			t := time.NewTicker(l.maintenance)
+			defer t.Stop()
+			for {
+				select {
+				case <-ctx.Done():
+					return
+				case <-t.C:
+					rep, err := w.Maintain(ctx, st.ReclaimSpace)
+					if err != nil {
+						log.Warn("maintenance", "error", err)
+						continue
+					}
+					log.Info("maintenance", "buckets_dropped", rep.Buckets)
+				}
+			}
+		}()
+	}
 
 	// Feeds: alert transitions and credit snapshots, from store snapshots
 	// on their own goroutine. The start rule looks at the committed data

@@ -15,6 +15,7 @@ import (
 
 	"github.com/touchledger/touchledger/internal/event"
 	"github.com/touchledger/touchledger/internal/pipeline"
+	"github.com/touchledger/touchledger/internal/state"
 )
 
 // Worker consumes a range of partitions into one pipeline.Processor.
@@ -300,6 +301,23 @@ loop:
 	st := p.Status()
 	w.log.Info("stopped", "next", st.Next, "accepted", st.Counts.Accepted, "buffered", st.Buffered)
 	return nil
+}
+
+// Maintain drops counter buckets past their retention (Processor.Prune)
+// on Run's goroutine, so no commit runs at the same time, and then lets the
+// store reclaim the space. Call it on a schedule (the ingest command does,
+// every --maintenance interval).
+func (w *Worker) Maintain(ctx context.Context, reclaim func() error) (state.PruneReport, error) {
+	var rep state.PruneReport
+	err := w.do(ctx, func(ctx context.Context, p *pipeline.Processor) error {
+		var err error
+		rep, err = p.Prune(ctx)
+		return err
+	})
+	if err != nil || reclaim == nil {
+		return rep, err
+	}
+	return rep, reclaim()
 }
 
 // ErrWorkerStopped is returned by Forget when Run has ended.
