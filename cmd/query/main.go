@@ -32,6 +32,7 @@ import (
 	"github.com/touchledger/touchledger/internal/query"
 	"github.com/touchledger/touchledger/internal/remote"
 	"github.com/touchledger/touchledger/internal/state"
+	"github.com/touchledger/touchledger/internal/web"
 )
 
 const usage = `query: read channel credit and path statistics from a touchledger data
@@ -172,9 +173,9 @@ func run(args []string, stdout, stderr io.Writer) int {
 	if err != nil {
 		return fail(2, err)
 	}
-	span, err := parseSpan(*from, *to, *last)
+	span, err := web.ParseSpan(*from, *to, *last)
 	if err != nil {
-		return fail(2, err)
+		return fail(2, fmt.Errorf("window (--from, --to, --last): %w", err))
 	}
 	cfg := config.Default()
 	if *configPath != "" {
@@ -434,39 +435,4 @@ func redact(urls string) string {
 		}
 	}
 	return strings.Join(parts, ",")
-}
-
-// parseSpan reads the window flags.
-func parseSpan(from, to, last string) (query.Span, error) {
-	var s query.Span
-	var err error
-	if last != "" {
-		d, err := config.ParseDuration(last)
-		if err != nil {
-			return s, fmt.Errorf("--last: %w", err)
-		}
-		s.Last = d
-	}
-	if from != "" {
-		if s.From, err = parseTime(from); err != nil {
-			return s, fmt.Errorf("--from: %w", err)
-		}
-	}
-	if to != "" {
-		if s.To, err = parseTime(to); err != nil {
-			return s, fmt.Errorf("--to: %w", err)
-		}
-	}
-	return s, nil
-}
-
-// parseTime accepts RFC 3339 or a date (00:00 UTC).
-func parseTime(s string) (time.Time, error) {
-	if t, err := time.Parse(time.RFC3339Nano, s); err == nil {
-		return t.UTC(), nil
-	}
-	if t, err := time.Parse("2006-01-02", s); err == nil {
-		return t, nil
-	}
-	return time.Time{}, fmt.Errorf("%q is neither an RFC 3339 time (2026-10-01T12:00:00Z) nor a date (2026-10-01)", s)
 }
