@@ -41,6 +41,6 @@
 // compared in constant time). The answers are aggregates over people's
 // behaviour: keep them on the machine or behind the token.
 //
-// ParseSpan and ParseTime read windows; cmd/query uses them too
-// --last/--from/--to; cmd/query can use them instead of its own copy.
+// ParseSpan and ParseTime read windows (last, from, to); cmd/query reads its
+// --last/--from/--to flags with them too, so both follow one set of rules.
 package web
