@@ -159,7 +159,7 @@ func scanString(b []byte, i int) (end int, flags uint8, bad syntaxError) {
 }
 
 // escapeLen checks the escape at b[i] == '\\' and returns its length: 2, 6
-// for \uXXXX, or 12 for an escaped surrogate pair.
+// for a \u escape with four hex digits, or 12 for an escaped surrogate pair.
 func escapeLen(b []byte, i int) (int, syntaxError) {
 	switch peek(b, i+1) {
 	case '"', '\\', '/', 'b', 'f', 'n', 'r', 't':
