@@ -24,5 +24,7 @@ echo "log: $dir/worker.log"
 echo
 "$dir/query" credit --config demo/touchledger.yaml --nats "nats://127.0.0.1:$port" --model linear --last 7d --chart
 echo
+"$dir/query" scorecard --config demo/touchledger.yaml --nats "nats://127.0.0.1:$port" --truth "$dir/truth.json" --last 28d
+echo
 echo "still running; open http://$http/ or ask: $dir/query funnel --nats nats://127.0.0.1:$port --last 7d  (Ctrl-C to stop)"
 wait $worker
