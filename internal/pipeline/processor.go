@@ -149,6 +149,11 @@ func (p *Processor) Status() Status {
 	return s
 }
 
+// pruneLimit bounds the buckets one Prune drops (Badger's DropPrefix takes
+// a few milliseconds per bucket and blocks writes meanwhile); the rest go in
+// later calls.
+const pruneLimit = 256
+
 // knownUsers sizes the filter of stored user ids (about 4.8 MB at a 1 %
 // false-positive rate). Beyond it the false-positive rate grows and more
 // lookups read the store; answers never change.
@@ -617,7 +622,7 @@ func (p *Processor) Prune(ctx context.Context) (state.PruneReport, error) {
 	if latest == minInt64 {
 		return state.PruneReport{}, nil
 	}
-	rep, err := p.store.Prune(ctx, latest)
+	rep, err := p.store.Prune(ctx, latest, pruneLimit)
 	if err == nil && rep.Buckets > 0 {
 		p.log.Info("pruned expired buckets", "buckets", rep.Buckets)
 	}

@@ -7,6 +7,7 @@ import (
 	"fmt"
 	"log/slog"
 	"os"
+	"sort"
 	"strings"
 	"time"
 
@@ -651,7 +652,8 @@ func (r *Reader) Watermark() (maxSeen, floor int64, ok bool, err error) {
 
 // PruneReport says what Prune removed.
 type PruneReport struct {
-	Buckets int // expired buckets dropped
+	Buckets int  // expired buckets dropped
+	More    bool // more expired buckets are left for a later call
 }
 
 // Prune drops the counter buckets that are older than their resolution's
@@ -663,7 +665,11 @@ type PruneReport struct {
 // delete marker). DropPrefix blocks writes while it runs: call Prune from the
 // goroutine that commits (Processor.Prune does), not concurrently with a
 // commit.
-func (s *Store) Prune(ctx context.Context, latest int64) (PruneReport, error) {
+//
+// DropPrefix costs a few milliseconds per bucket, so one call drops at most
+// limit buckets (the oldest first; 0 = no limit) and reports whether more
+// are left; call it again (a live worker does, on schedule).
+func (s *Store) Prune(ctx context.Context, latest int64, limit int) (PruneReport, error) {
 	var rep PruneReport
 	var prefixes [][]byte
 	err := s.db.View(func(txn *badger.Txn) error {
@@ -700,6 +706,10 @@ func (s *Store) Prune(ctx context.Context, latest int64) (PruneReport, error) {
 	})
 	if err != nil || len(prefixes) == 0 {
 		return rep, err
+	}
+	if limit > 0 && len(prefixes) > limit {
+		sort.Slice(prefixes, func(i, j int) bool { return bucketOfKey(prefixes[i]) < bucketOfKey(prefixes[j]) })
+		prefixes, rep.More = prefixes[:limit], true
 	}
 	for _, p := range prefixes {
 		delete(s.deltas, blobID{int(p[1]), tally.Family(p[2]), bucketOfKey(p)})

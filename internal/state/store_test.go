@@ -88,10 +88,16 @@ func TestPrune(t *testing.T) {
 		t.Fatal(err)
 	}
 	latest := base.Add(4*24*time.Hour + time.Hour).UnixNano()
-	rep, err := s.Prune(ctx, latest)
+	// A limited call drops the oldest first and says more are left.
+	rep, err := s.Prune(ctx, latest, 2)
+	if err != nil || rep.Buckets != 2 || !rep.More {
+		t.Fatalf("limited prune: %+v, %v; want 2 buckets and more left", rep, err)
+	}
+	rest, err := s.Prune(ctx, latest, 0)
 	if err != nil {
 		t.Fatal(err)
 	}
+	rep.Buckets += rest.Buckets
 	// 5m buckets at days 0..3 are older than one day before latest (4);
 	// hour buckets at days 0..2 are older than two days (3).
 	if rep.Buckets != 7 {
@@ -145,7 +151,7 @@ func TestPruneFreesDisk(t *testing.T) {
 		t.Fatal(err)
 	}
 	before := dirSize(t, dir)
-	if _, err := s.Prune(ctx, base.Add(20*24*time.Hour).UnixNano()); err != nil {
+	if _, err := s.Prune(ctx, base.Add(20*24*time.Hour).UnixNano(), 0); err != nil {
 		t.Fatal(err)
 	}
 	if err := s.ReclaimSpace(); err != nil {
