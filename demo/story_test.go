@@ -46,7 +46,7 @@ func TestDemoStory(t *testing.T) {
 		t.Fatal(err)
 	}
 	p.Close()
-	q, err := query.NewQuerier(st, pipeline.QueryParams(cfg))
+	q, err := query.NewQuerier(st, query.ParamsFrom(cfg))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -61,8 +61,7 @@ func TestDemoStory(t *testing.T) {
 	}
 	found := false
 	for _, al := range a.Alerts {
-		opened, _ := time.Parse(time.RFC3339, al.Opened)
-		closed, _ := time.Parse(time.RFC3339, al.Closed)
+		opened, closed := al.Opened, al.Closed
 		if opened.Before(start) || opened.After(start.Add(2*iv)) {
 			continue
 		}

@@ -41,7 +41,7 @@ func creditJSON(t *testing.T, dir string) string {
 		t.Fatal(err)
 	}
 	defer st.Close()
-	q, err := query.NewQuerier(st, pipeline.QueryParams(config.Default()))
+	q, err := query.NewQuerier(st, query.ParamsFrom(config.Default()))
 	if err != nil {
 		t.Fatal(err)
 	}

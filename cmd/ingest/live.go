@@ -19,6 +19,7 @@ import (
 	"github.com/prometheus/client_golang/prometheus"
 	"github.com/prometheus/client_golang/prometheus/collectors"
 
+	"github.com/touchledger/touchledger/internal/cli"
 	"github.com/touchledger/touchledger/internal/config"
 	"github.com/touchledger/touchledger/internal/dashboard"
 	"github.com/touchledger/touchledger/internal/feed"
@@ -31,39 +32,9 @@ import (
 	"github.com/touchledger/touchledger/internal/web"
 )
 
-// natsFlags are the options for reaching an existing NATS server.
-type natsFlags struct {
-	url, user, password, token, nkey, creds, ca, cert, key string
-}
-
-func addNATSFlags(fs *flag.FlagSet, f *natsFlags, defaultURL, urlHelp string) {
-	fs.StringVar(&f.url, "nats", defaultURL, urlHelp)
-	fs.StringVar(&f.user, "nats-user", "", "NATS `user` (with --nats-password)")
-	fs.StringVar(&f.password, "nats-password", "", "NATS `password` (default $TL_NATS_PASSWORD)")
-	fs.StringVar(&f.token, "nats-token", "", "NATS `token` (default $TL_NATS_TOKEN)")
-	fs.StringVar(&f.nkey, "nats-nkey", "", "NKey seed `file`")
-	fs.StringVar(&f.creds, "nats-creds", "", "credentials `file` (user JWT and seed)")
-	fs.StringVar(&f.ca, "nats-ca", "", "TLS: CA certificates `file` to trust")
-	fs.StringVar(&f.cert, "nats-cert", "", "TLS: client certificate `file` (with --nats-key)")
-	fs.StringVar(&f.key, "nats-key", "", "TLS: client key `file`")
-}
-
-// options returns the connection options; secrets not given as flags come
-// from the environment (so they need not appear in the process list).
-func (f natsFlags) options(name string) stream.ConnectOptions {
-	if f.password == "" {
-		f.password = os.Getenv("TL_NATS_PASSWORD")
-	}
-	if f.token == "" {
-		f.token = os.Getenv("TL_NATS_TOKEN")
-	}
-	return stream.ConnectOptions{URL: f.url, Name: name, User: f.user, Password: f.password, Token: f.token,
-		NKeyFile: f.nkey, CredsFile: f.creds, CAFile: f.ca, CertFile: f.cert, KeyFile: f.key}
-}
-
 // liveFlags are the options of live mode.
 type liveFlags struct {
-	nats         natsFlags
+	nats         *cli.NATS
 	port         int
 	partitions   string
 	scfg         stream.Config
@@ -99,7 +70,7 @@ func (f durationFlag) Set(s string) error {
 
 func addLiveFlags(fs *flag.FlagSet, l *liveFlags) {
 	l.scfg = stream.DefaultConfig()
-	addNATSFlags(fs, &l.nats, "", "NATS server `url`s (comma-separated) to consume from; default: start an embedded server")
+	l.nats = cli.AddNATS(fs, "", "NATS server `url`s (comma-separated) to consume from; default: start an embedded server")
 	fs.IntVar(&l.port, "port", stream.DefaultPort, "embedded server's client `port` on 127.0.0.1 (0 = any free port)")
 	fs.StringVar(&l.partitions, "partitions", "", "partition `range` this worker owns, e.g. 0-7 (default: all)")
 	fs.IntVar(&l.scfg.Partitions, "partition-count", l.scfg.Partitions, "`number` of partitions of the subject mapping")
@@ -147,7 +118,7 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 	}
 
 	// The bus: embedded unless --nats.
-	url := l.nats.url
+	url := l.nats.URL()
 	if url == "" {
 		var srv *server.Server
 		srv, url, err = stream.StartEmbedded(dir, stream.EmbedPort(l.port), stream.EmbedConfig(l.scfg), stream.EmbedLogger(log))
@@ -161,7 +132,7 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 		fmt.Fprintf(stdout, "nats: %s (embedded, loopback only; JetStream in %s; publish with: ingest send --nats %s FILE)\n",
 			url, filepath.Join(dir, "nats"), url)
 	}
-	opts := l.nats.options("touchledger worker " + parts.String())
+	opts := l.nats.Options("touchledger worker " + parts.String())
 	opts.URL = url
 	nc, err := stream.Connect(opts, log)
 	if err != nil {
@@ -217,7 +188,7 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 			err = cerr
 		}
 	}()
-	qparams := pipeline.QueryParams(cfg)
+	qparams := query.ParamsFrom(cfg)
 	openQuerier := func() (*query.Querier, error) { return query.NewQuerier(st, qparams) }
 
 	// Metrics and HTTP.
@@ -241,14 +212,13 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 			return err == nil && lag == 0 && w.Health().Committed == 0
 		}
 		h := web.NewHandler(web.Options{
-			Gatherer:       reg,
-			OpenQuerier:    openQuerier,
-			Ready:          web.ReadyAfterCommit(p, idle),
-			Token:          l.httpToken,
-			MarkovMaxOrder: cfg.MarkovMaxOrder,
-			Log:            log,
-			Page:           dashboard.NewHandler(dashboard.Options{Open: openQuerier, Title: "touchledger"}),
-			Backup:         st.Backup,
+			Gatherer:    reg,
+			OpenQuerier: openQuerier,
+			Ready:       web.ReadyAfterCommit(p, idle),
+			Token:       l.httpToken,
+			Log:         log,
+			Page:        dashboard.NewHandler(dashboard.Options{Open: openQuerier, Title: "touchledger"}),
+			Backup:      st.Backup,
 		})
 		ln, err := web.Listen(ctx, l.httpAddr, l.httpToken)
 		if err != nil {
@@ -269,7 +239,7 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 	}
 
 	// Queries over NATS for this worker's partitions.
-	svc, err := remote.Register(nc, l.scfg.Prefix, parts.First, parts.Last, st, st.Resolutions())
+	svc, err := remote.Register(nc, l.scfg.Prefix, parts.First, parts.Last, st, st.Resolutions(), qparams)
 	if err != nil {
 		return err
 	}

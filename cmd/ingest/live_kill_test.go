@@ -328,7 +328,7 @@ func allAnswers(t *testing.T, dir string, cfg config.Config, from, to time.Time)
 		t.Fatal(err)
 	}
 	defer st.Close()
-	q, err := query.NewQuerier(st, pipeline.QueryParams(cfg))
+	q, err := query.NewQuerier(st, query.ParamsFrom(cfg))
 	if err != nil {
 		t.Fatal(err)
 	}

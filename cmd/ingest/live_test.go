@@ -20,6 +20,7 @@ import (
 
 	"github.com/touchledger/touchledger/demo/shop"
 	"github.com/touchledger/touchledger/internal/feed"
+	"github.com/touchledger/touchledger/internal/query"
 	"github.com/touchledger/touchledger/internal/stream"
 )
 
@@ -162,7 +163,7 @@ func TestLiveCommand(t *testing.T) {
 		t.Fatal(err)
 	}
 	models := map[string]bool{}
-	for len(models) < len(feed.AllModels()) {
+	for len(models) < len(query.Models()) {
 		m, err := sub.NextMsg(5 * time.Second)
 		if err != nil {
 			t.Fatalf("credit snapshots of %d models: %v", len(models), err)

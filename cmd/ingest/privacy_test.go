@@ -71,7 +71,7 @@ func TestNoRawIDsAnywhere(t *testing.T) {
 		t.Fatal(err)
 	}
 	defer st.Close()
-	open := func() (*query.Querier, error) { return query.NewQuerier(st, pipeline.QueryParams(cfg)) }
+	open := func() (*query.Querier, error) { return query.NewQuerier(st, query.ParamsFrom(cfg)) }
 	q, _ := open()
 	for _, m := range []string{"linear", "markov", "shapley"} {
 		a, _ := q.Credit(m, query.ByCampaign, 0, query.Span{Last: 30 * 24 * time.Hour})

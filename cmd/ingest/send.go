@@ -14,6 +14,7 @@ import (
 	"github.com/nats-io/nats.go"
 	"github.com/nats-io/nats.go/jetstream"
 
+	"github.com/touchledger/touchledger/internal/cli"
 	"github.com/touchledger/touchledger/internal/pipeline"
 	"github.com/touchledger/touchledger/internal/stream"
 )
@@ -39,11 +40,10 @@ func runSend(args []string, stdout, stderr io.Writer) int {
 	fs := flag.NewFlagSet("ingest send", flag.ContinueOnError)
 	fs.SetOutput(stderr)
 	var (
-		nf       natsFlags
 		o        = stream.DefaultSendOptions()
 		progress = fs.Bool("progress", isTerminal(os.Stderr), "draw a progress bar on standard error (default: when it is a terminal)")
 	)
-	addNATSFlags(fs, &nf, "nats://127.0.0.1:4222", "NATS server `url`s (comma-separated)")
+	nf := cli.AddNATS(fs, "nats://127.0.0.1:4222", "NATS server `url`s (comma-separated)")
 	fs.StringVar(&o.Prefix, "prefix", o.Prefix, "subject `prefix`")
 	fs.Float64Var(&o.Rate, "rate", 0, "publish at most this many `events` per second (0 = as fast as the stream acknowledges)")
 	fs.IntVar(&o.MaxInFlight, "max-in-flight", o.MaxInFlight, "most `messages` published and not yet acknowledged")
@@ -93,7 +93,7 @@ func runSend(args []string, stdout, stderr io.Writer) int {
 		o.Progress = stderr
 	}
 	log := slog.New(slog.NewTextHandler(stderr, &slog.HandlerOptions{Level: slog.LevelWarn}))
-	nc, err := stream.Connect(nf.options("touchledger send"), log)
+	nc, err := stream.Connect(nf.Options("touchledger send"), log)
 	if err != nil {
 		fmt.Fprintf(stderr, "ingest send: %v\n", err)
 		return 1

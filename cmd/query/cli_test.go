@@ -124,15 +124,18 @@ func TestClearErrors(t *testing.T) {
 		code int
 		want string
 	}{
-		{[]string{"credit", "--data", dir, "--model", "lastclick"}, 1, "unknown attribution model"},
+		{[]string{"credit", "--data", dir, "--model", "lastclick"}, 2, `model: unknown model "lastclick" (use one of first-touch`},
+		{[]string{"credit", "--data", dir, "--model", "linear", "--top", "3"}, 2, "flag provided but not defined: -top"},
+		{[]string{"credit", "--data", dir, "--model", "linear", "--order", "2"}, 2, "order: applies to the markov model only"},
+		{[]string{"shift", "--data", dir, "--model", "linear", "--from", "2026-10-10"}, 2, "flag provided but not defined: -from"},
 		{[]string{"credit", "--data", dir, "--model", "linear", "--from", "yesterday"}, 2, "neither an RFC 3339 time"},
-		{[]string{"credit", "--data", dir, "--model", "linear", "--last", "7 days"}, 2, "--last"},
+		{[]string{"credit", "--data", dir, "--model", "linear", "--last", "7 days"}, 2, "last: invalid duration"},
 		{[]string{"credit", "--data", empty, "--model", "linear"}, 1, "not a touchledger data directory"},
 		{[]string{"credit", "--data", filepath.Join(empty, "nope"), "--model", "linear"}, 1, "no such file"},
 		{[]string{"credit", "--model", "linear"}, 2, "--data DIR (a stopped worker's directory) or --nats URL (the running workers) is required"},
 		{[]string{"credit", "--data", dir, "--nats", "nats://127.0.0.1:4222", "--model", "linear"}, 2, "--data and --nats exclude each other"},
 		{[]string{"frobnicate"}, 2, "unknown command"},
-		{[]string{"paths", "--data", dir}, 2, "--level is required"},
+		{[]string{"paths", "--data", dir}, 2, "level: is required"},
 	}
 	for _, c := range cases {
 		code, _, errOut := runCLI(c.args...)

@@ -3,7 +3,6 @@ package main
 import (
 	"encoding/json"
 	"errors"
-	"flag"
 	"fmt"
 	"io"
 	"slices"
@@ -151,15 +150,4 @@ func describeForget(r forgetReply) string {
 		s += "; but: " + r.Error
 	}
 	return s
-}
-
-// flagSet reports whether the flag name was given on the command line.
-func flagSet(fs *flag.FlagSet, name string) bool {
-	set := false
-	fs.Visit(func(f *flag.Flag) {
-		if f.Name == name {
-			set = true
-		}
-	})
-	return set
 }

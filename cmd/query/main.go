@@ -8,8 +8,12 @@
 //	query funnel      (--data DIR | --nats URL)
 //	query alerts      (--data DIR | --nats URL) [--points]
 //	query status      (--data DIR | --nats URL)
+//	query scorecard   (--data DIR | --nats URL) --truth FILE
+//	query forget      (--data DIR | --nats URL) --user ID
 //
-// See `query --help`.
+// Each command takes only its own flags (query COMMAND --help). Exit codes:
+// 0 answered, 1 failed (data, I/O, network), 2 called wrongly (the message
+// names the flag).
 package main
 
 import (
@@ -18,7 +22,6 @@ import (
 	"flag"
 	"fmt"
 	"io"
-	"net/url"
 	"os"
 	"path/filepath"
 	"strings"
@@ -26,131 +29,157 @@ import (
 
 	"github.com/nats-io/nats.go"
 
+	"github.com/touchledger/touchledger/internal/cli"
 	"github.com/touchledger/touchledger/internal/config"
-	"github.com/touchledger/touchledger/internal/credit"
 	"github.com/touchledger/touchledger/internal/pipeline"
 	"github.com/touchledger/touchledger/internal/query"
 	"github.com/touchledger/touchledger/internal/remote"
 	"github.com/touchledger/touchledger/internal/state"
-	"github.com/touchledger/touchledger/internal/web"
+	"github.com/touchledger/touchledger/internal/stream"
 )
 
-const usage = `query: read channel credit and path statistics from a touchledger data
+const usageHead = `query: read channel credit and path statistics from a touchledger data
 directory, or from every live worker over NATS.
 
-Usage:
-  query credit      SOURCE --model NAME [--order K] [window] [--by channel|campaign] [--format F] [--chart]
-  query shift       SOURCE --model NAME [--days N] [--format F] [--chart]
-  query transitions SOURCE --level channel|action [--order K] [window] [--format F]
-  query paths       SOURCE --level action|channel [--top N] [window] [--format F]
-  query funnel      SOURCE [window] [--format F]
-  query alerts      SOURCE [window] [--points] [--format F]
-  query status      SOURCE [window] [--format F]
-  query forget      SOURCE --user ID [--format F]
+Usage: query COMMAND SOURCE [flags]
+
+Commands:
+`
+
+const usageTail = `  forget       erase a person's stored state (with --nats: on every worker)
 
 SOURCE is exactly one of:
-  --data DIR         the data directory of a stopped worker
-  --nats URL         ask every running worker (comma-separated URLs for a cluster);
-                     options --nats-creds FILE, --nats-user U --nats-password P,
-                     --nats-token T, --timeout 2s, --partitions 16, --prefix tl.
-                     Workers' tables are added, then the models are computed;
-                     partitions whose worker did not answer within --timeout
-                     are named: "partial answer: partitions 8-15 did not answer".
+  --data DIR    the data directory of a stopped worker
+  --nats URL    ask every running worker (default $NATS_URL; comma-separated
+                URLs for a cluster); their tables are added, then the models
+                are computed, with the configuration the workers announce
+                unless --config FILE is given
 
-credit       conversions and value credited to each channel by a model
-shift        each channel's credit per day and the change from the day before
-transitions  how journeys move between channels (as the Markov model sees
-             them), or how sessions move between actions, with row probabilities
-paths        the most frequent whole session or journey paths, with conversion rates
-funnel       sessions reaching each funnel step in order, and where they drop out
-alerts       cart-abandonment spikes found by an EWMA control chart
-status       what the data directory holds
-scorecard    each model's credit next to a simulated world's true incremental
-             conversions (demo --truth FILE), with the distance between them
-forget       erase a person: their stored session, journey and de-duplication
-             state (aggregate counters hold no identifiers and stay). With
-             --data, in a stopped worker's directory; with --nats, every
-             running worker erases them (tl.admin.forget, which needs the
-             admin's credentials in deploy/), the owner of their partition
-             also purges their messages from the stream, and each worker's
-             answer is shown; --timeout defaults to 10s here
+Durations everywhere read 30m, 12h, 7d or 1d12h. Exit codes: 0 answered,
+1 failed (data, I/O, network), 2 called wrongly (unknown or inapplicable
+flag, bad value: the message names it).
 
-Window (over conversion time, [from, to)):
-  --last 7d          the 7 days up to the latest event seen (default 30d)
-  --from T --to T    RFC 3339 times or dates (2026-10-01 = 00:00 UTC)
-The answer names the window it covers; it is widened to bucket edges when
-the data held at that age is coarser than the window's edges.
-
-Models: %s
-
-Run "query COMMAND --help" for the options of a command.
+Run "query COMMAND --help" for the flags of a command, "query --version"
+for the version.
 `
+
+// examples are shown by each command's --help.
+var examples = map[string][]string{
+	"credit":      {"query credit --data tl-data --model linear --last 7d", "query credit --nats nats://127.0.0.1:4222 --model markov --order 2 --format json"},
+	"shift":       {"query shift --data tl-data --model position-based --days 7 --chart"},
+	"transitions": {"query transitions --data tl-data --level channel --last 7d", "query transitions --data tl-data --level action --from 2026-10-01 --to 2026-10-08"},
+	"paths":       {"query paths --data tl-data --level action --top 5"},
+	"funnel":      {"query funnel --data tl-data --last 1d12h"},
+	"alerts":      {"query alerts --nats nats://127.0.0.1:4222 --last 28d --points"},
+	"status":      {"query status --data tl-data"},
+	"scorecard":   {"query scorecard --data tl-data --truth truth.json --last 28d"},
+	"forget":      {"query forget --data tl-data --user u-123", "query forget --nats nats://127.0.0.1:4222 --user u-123 --format json"},
+}
 
 func main() {
 	os.Exit(run(os.Args[1:], os.Stdout, os.Stderr))
 }
 
-func modelNames() string {
-	var names []string
-	for _, m := range credit.RuleModels {
-		names = append(names, m.String())
+func usage(w io.Writer) {
+	fmt.Fprint(w, usageHead)
+	for _, k := range query.Kinds {
+		fmt.Fprintf(w, "  %-12s %s\n", k, k.Help())
 	}
-	names = append(names, query.ModelMarkov, query.ModelShapley)
-	return strings.Join(names, ", ")
+	fmt.Fprint(w, usageTail)
+}
+
+// textFlag is one Request parameter as a flag: the text given, if any.
+type textFlag struct {
+	name  string
+	given map[string]string
+	bool  bool
+}
+
+func (f *textFlag) String() string     { return f.given[f.name] }
+func (f *textFlag) Set(s string) error { f.given[f.name] = s; return nil }
+func (f *textFlag) IsBoolFlag() bool   { return f.bool }
+
+// source are the flags that say where the data is.
+type source struct {
+	data, config string
+	nats         *cli.NATS
+	timeout      time.Duration
+	partitions   int
+	prefix       string
+}
+
+func addSource(fs *flag.FlagSet, timeout time.Duration) *source {
+	s := &source{}
+	fs.StringVar(&s.data, "data", "", "data `directory` of a stopped worker")
+	fs.StringVar(&s.config, "config", "", "YAML configuration `file` (with --nats: instead of the workers' announced configuration)")
+	s.nats = cli.AddNATS(fs, "", "NATS server `URL`s (comma-separated): ask the running workers")
+	cli.DurationVar(fs, &s.timeout, "timeout", timeout, "with --nats: how long to wait for workers and for each answer")
+	fs.IntVar(&s.partitions, "partitions", remote.DefaultPartitions, "with --nats: number of partitions in all")
+	fs.StringVar(&s.prefix, "prefix", remote.DefaultPrefix, "with --nats: subject `prefix` of the workers")
+	return s
+}
+
+// check says which source was given, as a usage error.
+func (s *source) check() error {
+	switch {
+	case s.data == "" && s.nats.URL() == "":
+		return errors.New("--data DIR (a stopped worker's directory) or --nats URL (the running workers) is required")
+	case s.data != "" && s.nats.URL() != "":
+		return errors.New("--data and --nats exclude each other: give one")
+	case s.nats.URL() != "" && s.timeout <= 0:
+		return fmt.Errorf("--timeout must be positive, got %v", s.timeout)
+	case s.nats.URL() != "" && s.partitions < 1:
+		return fmt.Errorf("--partitions must be at least 1, got %d", s.partitions)
+	}
+	return nil
 }
 
 func run(args []string, stdout, stderr io.Writer) int {
-	if len(args) == 0 || args[0] == "-h" || args[0] == "--help" || args[0] == "help" {
-		fmt.Fprintf(stderr, usage, modelNames())
-		if len(args) == 0 {
-			return 2
-		}
-		return 0
+	if len(args) == 0 {
+		usage(stderr)
+		return cli.ExitUsage
+	}
+	switch args[0] {
+	case "-h", "-help", "--help", "help":
+		usage(stdout)
+		return cli.ExitOK
+	case "-version", "--version", "version":
+		fmt.Fprintln(stdout, cli.Version("query"))
+		return cli.ExitOK
 	}
 	cmd, args := args[0], args[1:]
+	if cmd == "forget" {
+		return runForget(args, stdout, stderr)
+	}
+	kind, err := query.ParseKind(cmd)
+	if err != nil {
+		fmt.Fprintf(stderr, "query: unknown command %q (see query --help)\n", cmd)
+		return cli.ExitUsage
+	}
 	fs := flag.NewFlagSet("query "+cmd, flag.ContinueOnError)
 	fs.SetOutput(stderr)
-	var (
-		dataDir    = fs.String("data", "", "data `directory` of a stopped worker")
-		configPath = fs.String("config", "", "YAML configuration `file` the data directory was written with")
-		format     = fs.String("format", "table", "output `format`: table, json or csv")
-		model      = fs.String("model", "", "attribution `model`: "+modelNames())
-		by         = fs.String("by", "channel", "group credit by channel or campaign")
-		from       = fs.String("from", "", "window start: RFC 3339 `time` or date")
-		to         = fs.String("to", "", "window end (exclusive): RFC 3339 `time` or date")
-		last       = fs.String("last", "", "window `length` ending at the latest event, e.g. 7d, 12h")
-		days       = fs.Int("days", 14, "shift: number of `days` to show")
-		chart      = fs.Bool("chart", false, "table format: add a text bar chart")
-		order      = fs.Int("order", 1, "markov model and channel transitions: Markov `order` (1 up to markov_max_order)")
-		level      = fs.String("level", "", "transitions and paths: `channel` (journeys) or action (sessions)")
-		top        = fs.Int("top", 10, "paths: how many paths to show")
-		points     = fs.Bool("points", false, "alerts: also show every interval of the chart")
-		natsURL    = fs.String("nats", "", "NATS server `URL` (comma-separated for a cluster): ask the running workers")
-		natsCreds  = fs.String("nats-creds", "", "NATS credentials `file`")
-		natsUser   = fs.String("nats-user", "", "NATS `user` name (with --nats-password)")
-		natsPass   = fs.String("nats-password", "", "NATS `password`")
-		natsToken  = fs.String("nats-token", "", "NATS authentication `token`")
-		timeout    = fs.Duration("timeout", remote.DefaultTimeout, "with --nats: how long to wait for workers and for each answer")
-		partitions = fs.Int("partitions", remote.DefaultPartitions, "with --nats: number of partitions in all")
-		prefix     = fs.String("prefix", remote.DefaultPrefix, "with --nats: subject `prefix` of the workers")
-		truthPath  = fs.String("truth", "", "scorecard: the simulated world's truth `file` (demo --truth)")
-		user       = fs.String("user", "", "forget: the person's user `id` as sent (pseudonymised like input when a key is configured)")
-	)
-	switch cmd {
-	case "credit", "shift", "status", "transitions", "paths", "funnel", "alerts", "scorecard", "forget":
-	default:
-		fmt.Fprintf(stderr, "query: unknown command %q (see --help)\n", cmd)
-		return 2
+	src := addSource(fs, remote.DefaultTimeout)
+	format := fs.String("format", "table", "output `format`: table, json or csv")
+	var chart *bool
+	if kind == query.KindCredit || kind == query.KindShift {
+		chart = fs.Bool("chart", false, "table format: add a text bar chart")
 	}
-	if err := fs.Parse(args); err != nil {
-		if errors.Is(err, flag.ErrHelp) {
-			return 0
+	version := fs.Bool("version", false, "print the version and exit")
+	given := map[string]string{}
+	for _, p := range kind.Params() {
+		help := p.Help
+		if p.Default != "" {
+			help += " (default " + p.Default + ")"
 		}
-		return 2
+		fs.Var(&textFlag{name: p.Name, given: given, bool: p.Bool}, p.Name, help)
 	}
-	if fs.NArg() > 0 {
-		fmt.Fprintf(stderr, "query: unexpected argument %q\n", fs.Arg(0))
-		return 2
+	fs.Usage = func() { commandUsage(fs, cmd, kind.Help()) }
+	if code, done := parse(fs, args, stderr); done {
+		return code
+	}
+	if *version {
+		fmt.Fprintln(stdout, cli.Version("query"))
+		return cli.ExitOK
 	}
 	fail := func(code int, err error) int {
 		fmt.Fprintf(stderr, "query %s: %v\n", cmd, err)
@@ -158,205 +187,203 @@ func run(args []string, stdout, stderr io.Writer) int {
 	}
 	f, err := query.ParseFormat(*format)
 	if err != nil {
-		return fail(2, err)
+		return fail(cli.ExitUsage, fmt.Errorf("--format: %w", err))
 	}
-	switch {
-	case *dataDir == "" && *natsURL == "":
-		return fail(2, errors.New("--data DIR (a stopped worker's directory) or --nats URL (the running workers) is required"))
-	case *dataDir != "" && *natsURL != "":
-		return fail(2, errors.New("--data and --nats exclude each other: give one"))
+	if err := src.check(); err != nil {
+		return fail(cli.ExitUsage, err)
 	}
-	if (cmd == "credit" || cmd == "shift") && *model == "" {
-		return fail(2, fmt.Errorf("--model is required (%s)", modelNames()))
-	}
-	grp, err := query.ParseBy(*by)
+	req, err := query.ParseRequest(kind, given)
 	if err != nil {
-		return fail(2, err)
+		return fail(cli.ExitUsage, err)
 	}
-	span, err := web.ParseSpan(*from, *to, *last)
+	q, closeSrc, err := src.open(stderr)
 	if err != nil {
-		return fail(2, fmt.Errorf("window (--from, --to, --last): %w", err))
+		var use usageError
+		if errors.As(err, &use) {
+			return fail(cli.ExitUsage, err)
+		}
+		return fail(cli.ExitFailure, err)
 	}
-	cfg := config.Default()
-	if *configPath != "" {
-		if cfg, err = config.Load(*configPath); err != nil {
-			return fail(2, err)
-		}
-	}
-	if (cmd == "transitions" || cmd == "paths") && *level == "" {
-		return fail(2, errors.New("--level is required: channel or action"))
-	}
-	if cmd == "scorecard" && *truthPath == "" {
-		return fail(2, errors.New("--truth FILE is required (write it with: demo --truth FILE)"))
-	}
-	if cmd == "forget" {
-		if *user == "" {
-			return fail(2, errors.New("--user ID is required"))
-		}
-		if *natsURL != "" {
-			wait := *timeout
-			if !flagSet(fs, "timeout") {
-				wait = forgetTimeout
-			}
-			if wait <= 0 {
-				return fail(2, fmt.Errorf("--timeout must be positive, got %v", wait))
-			}
-			if *partitions < 1 {
-				return fail(2, fmt.Errorf("--partitions must be at least 1, got %d", *partitions))
-			}
-			opts, err := natsOptions(*natsCreds, *natsUser, *natsPass, *natsToken, wait)
-			if err != nil {
-				return fail(2, err)
-			}
-			nc, err := nats.Connect(*natsURL, opts...)
-			if err != nil {
-				return fail(1, fmt.Errorf("connect to NATS at %s: %w", redact(*natsURL), err))
-			}
-			defer nc.Close()
-			return forgetLive(nc, *prefix, *partitions, wait, *user, f, stdout, stderr, fail)
-		}
-		return forget(*dataDir, *user, cfg, f, stdout, fail)
-	}
-	var q *query.Querier
-	var missing []int
-	if *dataDir != "" {
-		if _, err := os.Stat(*dataDir); err != nil {
-			return fail(1, fmt.Errorf("data directory: %w", err))
-		}
-		if _, err := os.Stat(filepath.Join(*dataDir, "MANIFEST")); err != nil {
-			return fail(1, fmt.Errorf("%s is not a touchledger data directory (no store in it; run ingest first)", *dataDir))
-		}
-		st, err := state.Open(context.Background(), pipeline.StoreOptions(*dataDir, cfg))
-		if err != nil {
-			return fail(1, err)
-		}
-		defer st.Close()
-		if q, err = query.NewQuerier(st, pipeline.QueryParams(cfg)); err != nil {
-			return fail(1, err)
-		}
-	} else {
-		if *timeout <= 0 {
-			return fail(2, fmt.Errorf("--timeout must be positive, got %v", *timeout))
-		}
-		if *partitions < 1 {
-			return fail(2, fmt.Errorf("--partitions must be at least 1, got %d", *partitions))
-		}
-		opts, err := natsOptions(*natsCreds, *natsUser, *natsPass, *natsToken, *timeout)
-		if err != nil {
-			return fail(2, err)
-		}
-		nc, err := nats.Connect(*natsURL, opts...)
-		if err != nil {
-			return fail(1, fmt.Errorf("connect to NATS at %s: %w", redact(*natsURL), err))
-		}
-		defer nc.Close()
-		res := pipeline.StoreOptions("", cfg).Resolutions
-		src, err := remote.NewSource(nc, remote.Options{Prefix: *prefix, Partitions: *partitions, Timeout: *timeout, Resolutions: res})
-		if err != nil {
-			return fail(1, err)
-		}
-		missing = src.Missing()
-		q, err = query.NewQuerierFrom(src, res, pipeline.QueryParams(cfg))
-		if errors.Is(err, query.ErrNoData) {
-			err = fmt.Errorf("no data: the workers that answered have committed no events yet (%s)", strings.TrimPrefix(query.PartialWarning(missing), "partial answer: "))
-			if missing == nil {
-				err = errors.New("no data: the workers have committed no events yet")
-			}
-		}
-		if err != nil {
-			return fail(1, err)
-		}
-	}
+	defer closeSrc()
 	defer q.Close()
-	if w := query.PartialWarning(missing); w != "" && f == query.JSON {
+	ans, err := q.Answer(req)
+	if err != nil {
+		if query.IsParamError(err) {
+			return fail(cli.ExitUsage, err)
+		}
+		return fail(cli.ExitFailure, err)
+	}
+	if w := query.PartialWarning(ans.Missing()); w != "" && f == query.JSON {
 		// JSON carries missing_partitions; say it to people too.
 		fmt.Fprintf(stderr, "query %s: %s\n", cmd, w)
 	}
-	switch cmd {
-	case "credit":
-		a, err := q.Credit(*model, grp, *order, span)
-		if err != nil {
-			return fail(1, err)
+	o := query.RenderOptions{}
+	if chart != nil {
+		o.Chart = *chart
+	}
+	if err := query.Render(stdout, ans, f, o); err != nil {
+		return fail(cli.ExitFailure, err)
+	}
+	return cli.ExitOK
+}
+
+// parse parses a command's flags; done reports that the command is over
+// (help shown, or a usage error) with its exit code.
+func parse(fs *flag.FlagSet, args []string, stderr io.Writer) (int, bool) {
+	if err := fs.Parse(args); err != nil {
+		if errors.Is(err, flag.ErrHelp) {
+			return cli.ExitOK, true
 		}
-		a.MissingPartitions = missing
-		err = query.WriteCredit(stdout, a, f, *chart)
-		if err != nil {
-			return fail(1, err)
-		}
-	case "shift":
-		a, err := q.Shift(*model, *order, *days)
-		if err != nil {
-			return fail(1, err)
-		}
-		a.MissingPartitions = missing
-		if err := query.WriteShift(stdout, a, f, *chart); err != nil {
-			return fail(1, err)
-		}
-	case "transitions":
-		a, err := q.Transitions(*level, *order, span)
-		if err != nil {
-			return fail(1, err)
-		}
-		a.MissingPartitions = missing
-		if err := query.WriteTransitions(stdout, a, f); err != nil {
-			return fail(1, err)
-		}
-	case "paths":
-		a, err := q.Paths(*level, *top, span)
-		if err != nil {
-			return fail(1, err)
-		}
-		a.MissingPartitions = missing
-		if err := query.WritePaths(stdout, a, f); err != nil {
-			return fail(1, err)
-		}
-	case "funnel":
-		a, err := q.Funnel(span)
-		if err != nil {
-			return fail(1, err)
-		}
-		a.MissingPartitions = missing
-		if err := query.WriteFunnel(stdout, a, f); err != nil {
-			return fail(1, err)
-		}
-	case "alerts":
-		a, err := q.Alerts(span, *points)
-		if err != nil {
-			return fail(1, err)
-		}
-		a.MissingPartitions = missing
-		if err := query.WriteAlerts(stdout, a, f); err != nil {
-			return fail(1, err)
-		}
-	case "scorecard":
-		truth, err := query.ReadTruth(*truthPath)
-		if err != nil {
-			return fail(1, err)
-		}
-		var answers []query.CreditAnswer
-		for _, m := range strings.Split(modelNames(), ", ") {
-			a, err := q.Credit(m, query.ByChannel, 0, span)
-			if err != nil {
-				return fail(1, fmt.Errorf("model %s: %w", m, err))
-			}
-			answers = append(answers, a)
-		}
-		sc := query.Scorecard(answers, truth)
-		sc.MissingPartitions = missing
-		if err := query.WriteScorecard(stdout, sc, f); err != nil {
-			return fail(1, err)
-		}
-	case "status":
-		s, p, err := q.Status(span)
-		if err != nil {
-			return fail(1, err)
-		}
-		s.MissingPartitions = missing
-		if err := query.WriteStatus(stdout, s, p, f); err != nil {
-			return fail(1, err)
+		return cli.ExitUsage, true // the flag package named the flag
+	}
+	if fs.NArg() > 0 {
+		fmt.Fprintf(stderr, "%s: unexpected argument %q (flags start with --)\n", fs.Name(), fs.Arg(0))
+		return cli.ExitUsage, true
+	}
+	return 0, false
+}
+
+// commandUsage prints one command's flags and examples.
+func commandUsage(fs *flag.FlagSet, cmd, help string) {
+	w := fs.Output()
+	fmt.Fprintf(w, "%s: %s\n\nUsage: query %s (--data DIR | --nats URL) [flags]\n\nFlags:\n", fs.Name(), help, cmd)
+	fs.PrintDefaults()
+	fmt.Fprint(w, "\nExamples:\n")
+	for _, e := range examples[cmd] {
+		fmt.Fprintf(w, "  %s\n", e)
+	}
+}
+
+// usageError marks a source error that is the caller's (exit 2).
+type usageError struct{ error }
+
+// open opens the querier: on a stopped worker's directory, or on every
+// running worker, with the workers' announced configuration unless
+// --config is given (it says on stderr which one it used).
+func (s *source) open(stderr io.Writer) (*query.Querier, func(), error) {
+	cfg := config.Default()
+	if s.config != "" {
+		var err error
+		if cfg, err = config.Load(s.config); err != nil {
+			return nil, nil, usageError{err}
 		}
 	}
-	return 0
+	if s.data != "" {
+		if _, err := os.Stat(s.data); err != nil {
+			return nil, nil, fmt.Errorf("data directory: %w", err)
+		}
+		if _, err := os.Stat(filepath.Join(s.data, "MANIFEST")); err != nil {
+			return nil, nil, fmt.Errorf("%s is not a touchledger data directory (no store in it; run ingest first)", s.data)
+		}
+		st, err := state.Open(context.Background(), pipeline.StoreOptions(s.data, cfg))
+		if err != nil {
+			return nil, nil, err
+		}
+		q, err := query.NewQuerier(st, query.ParamsFrom(cfg))
+		if err != nil {
+			st.Close()
+			return nil, nil, err
+		}
+		return q, func() { st.Close() }, nil
+	}
+	nc, err := s.connect()
+	if err != nil {
+		return nil, nil, err
+	}
+	o := remote.Options{Prefix: s.prefix, Partitions: s.partitions, Timeout: s.timeout}
+	if s.config != "" {
+		o.Resolutions = pipeline.StoreOptions("", cfg).Resolutions
+	}
+	src, err := remote.NewSource(nc, o)
+	if err != nil {
+		nc.Close()
+		return nil, nil, err
+	}
+	params := query.ParamsFrom(cfg)
+	if s.config != "" {
+		fmt.Fprintf(stderr, "query: configuration from %s (not the workers' own)\n", s.config)
+	} else if params, err = src.Config(); err != nil {
+		nc.Close()
+		return nil, nil, err
+	} else {
+		fmt.Fprintf(stderr, "query: configuration announced by the workers\n")
+	}
+	missing := src.Missing()
+	q, err := query.NewQuerierFrom(src, src.Resolutions(), params)
+	if errors.Is(err, query.ErrNoData) {
+		err = errors.New("no data: the workers have committed no events yet")
+		if missing != nil {
+			err = fmt.Errorf("no data: the workers that answered have committed no events yet (%s)", strings.TrimPrefix(query.PartialWarning(missing), "partial answer: "))
+		}
+	}
+	if err != nil {
+		nc.Close()
+		return nil, nil, err
+	}
+	return q, nc.Close, nil
+}
+
+// connect connects to NATS with the shared connection flags.
+func (s *source) connect() (*nats.Conn, error) {
+	o := s.nats.Options("touchledger query")
+	if err := o.Validate(); err != nil {
+		return nil, usageError{err}
+	}
+	return stream.Connect(o, nil)
+}
+
+// runForget erases a person: in a stopped worker's directory, or on every
+// running worker.
+func runForget(args []string, stdout, stderr io.Writer) int {
+	fs := flag.NewFlagSet("query forget", flag.ContinueOnError)
+	fs.SetOutput(stderr)
+	src := addSource(fs, forgetTimeout)
+	format := fs.String("format", "table", "output `format`: table or json")
+	user := fs.String("user", "", "the person's user `id` as sent (pseudonymised like input when a key is configured)")
+	version := fs.Bool("version", false, "print the version and exit")
+	fs.Usage = func() {
+		commandUsage(fs, "forget", "erase a person: their stored session, journey and de-duplication state (aggregate counters hold no identifiers and stay); with --nats every running worker erases them and the owner of their partition purges their messages from the stream")
+	}
+	if code, done := parse(fs, args, stderr); done {
+		return code
+	}
+	if *version {
+		fmt.Fprintln(stdout, cli.Version("query"))
+		return cli.ExitOK
+	}
+	fail := func(code int, err error) int {
+		fmt.Fprintf(stderr, "query forget: %v\n", err)
+		return code
+	}
+	f, err := query.ParseFormat(*format)
+	if err != nil || f == query.CSV {
+		return fail(cli.ExitUsage, fmt.Errorf("--format: use table or json, not %q", *format))
+	}
+	if err := src.check(); err != nil {
+		return fail(cli.ExitUsage, err)
+	}
+	if *user == "" {
+		return fail(cli.ExitUsage, errors.New("--user ID is required"))
+	}
+	cfg := config.Default()
+	if src.config != "" {
+		if cfg, err = config.Load(src.config); err != nil {
+			return fail(cli.ExitUsage, err)
+		}
+	}
+	if src.data != "" {
+		return forget(src.data, *user, cfg, f, stdout, fail)
+	}
+	nc, err := src.connect()
+	if err != nil {
+		var use usageError
+		if errors.As(err, &use) {
+			return fail(cli.ExitUsage, err)
+		}
+		return fail(cli.ExitFailure, err)
+	}
+	defer nc.Close()
+	return forgetLive(nc, src.prefix, src.partitions, src.timeout, *user, f, stdout, stderr, fail)
 }
 
 // forget erases a person from a stopped worker's data directory.
@@ -399,40 +426,4 @@ func forget(dir, user string, cfg config.Config, f query.Format, stdout io.Write
 	fmt.Fprintf(stdout, "forgot %s: %s; events for them arriving before %s are dropped; aggregate counters, which hold no identifiers, are kept\n",
 		rep.User, what, rep.DroppedUntil.Format(time.RFC3339))
 	return 0
-}
-
-// natsOptions builds the connection options from the authentication flags.
-func natsOptions(creds, user, password, token string, timeout time.Duration) ([]nats.Option, error) {
-	opts := []nats.Option{nats.Name("touchledger query"), nats.Timeout(timeout), nats.MaxReconnects(0)}
-	auth := 0
-	if creds != "" {
-		auth++
-		opts = append(opts, nats.UserCredentials(creds))
-	}
-	if user != "" || password != "" {
-		if user == "" || password == "" {
-			return nil, errors.New("--nats-user and --nats-password go together")
-		}
-		auth++
-		opts = append(opts, nats.UserInfo(user, password))
-	}
-	if token != "" {
-		auth++
-		opts = append(opts, nats.Token(token))
-	}
-	if auth > 1 {
-		return nil, errors.New("give one way to authenticate: --nats-creds, --nats-user/--nats-password or --nats-token")
-	}
-	return opts, nil
-}
-
-// redact hides passwords in server URLs before they are printed.
-func redact(urls string) string {
-	parts := strings.Split(urls, ",")
-	for i, p := range parts {
-		if u, err := url.Parse(strings.TrimSpace(p)); err == nil && u.User != nil {
-			parts[i] = u.Redacted()
-		}
-	}
-	return strings.Join(parts, ",")
 }

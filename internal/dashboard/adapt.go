@@ -257,23 +257,13 @@ func ControlFrom(a query.AlertsAnswer) (ControlData, error) {
 		d.Interval = iv
 	}
 	for _, p := range a.Points {
-		t, err := time.Parse(time.RFC3339, p.Start)
-		if err != nil {
-			return d, fmt.Errorf("alert point start %q: %w", p.Start, err)
-		}
-		d.Points = append(d.Points, ControlPoint{Start: t, Sessions: p.Sessions, Rate: p.Rate, Statistic: p.Statistic,
+		d.Points = append(d.Points, ControlPoint{Start: p.Start, Sessions: p.Sessions, Rate: p.Rate, Statistic: p.Statistic,
 			Limit: p.Limit, Baseline: p.Baseline, Evaluated: p.Evaluated})
 	}
 	for _, al := range a.Alerts {
-		opened, err := time.Parse(time.RFC3339, al.Opened)
-		if err != nil {
-			return d, fmt.Errorf("alert opened %q: %w", al.Opened, err)
-		}
-		b := AlertBand{Opened: opened, Peak: al.Peak, Limit: al.Limit, OpenedText: al.Opened, ClosedText: al.Closed}
-		if al.Closed != "" {
-			if b.Closed, err = time.Parse(time.RFC3339, al.Closed); err != nil {
-				return d, fmt.Errorf("alert closed %q: %w", al.Closed, err)
-			}
+		b := AlertBand{Opened: al.Opened, Peak: al.Peak, Limit: al.Limit, OpenedText: query.FormatTime(al.Opened)}
+		if !al.Closed.IsZero() {
+			b.Closed, b.ClosedText = al.Closed, query.FormatTime(al.Closed)
 		}
 		d.Alerts = append(d.Alerts, b)
 	}

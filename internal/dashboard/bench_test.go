@@ -22,7 +22,7 @@ func benchAnswers(points int) Answers {
 		a.Shift.Days = append(a.Shift.Days, day)
 	}
 	a.Credit = nil
-	for _, m := range DefaultModels() {
+	for _, m := range query.Models() {
 		c := query.CreditAnswer{Model: m}
 		for i, ch := range chans {
 			c.Channels = append(c.Channels, query.ChannelCredit{Channel: ch, Conversions: float64(100 + i), Share: 0.125})
@@ -33,10 +33,10 @@ func benchAnswers(points int) Answers {
 	a.Alerts.Points = nil
 	t0 := time.Date(2026, 10, 1, 0, 0, 0, 0, time.UTC)
 	for i := range points {
-		a.Alerts.Points = append(a.Alerts.Points, query.AlertPoint{Start: query.FormatTime(t0.Add(time.Duration(i) * 5 * time.Minute)),
+		a.Alerts.Points = append(a.Alerts.Points, query.AlertPoint{Start: t0.Add(time.Duration(i) * 5 * time.Minute),
 			Sessions: 40, Rate: float64(i%17) / 40, Statistic: 0.3, Baseline: 0.3, Limit: 0.45, Evaluated: true})
 	}
-	a.Alerts.Alerts = []query.AlertRecord{{Opened: query.FormatTime(t0.Add(20 * 24 * time.Hour)), Closed: query.FormatTime(t0.Add(20*24*time.Hour + time.Hour)), Peak: 0.9}}
+	a.Alerts.Alerts = []query.AlertRecord{{Opened: t0.Add(20 * 24 * time.Hour), Closed: t0.Add(20*24*time.Hour + time.Hour), Peak: 0.9}}
 	return a
 }
 
@@ -50,7 +50,7 @@ func BenchmarkBuildRender(b *testing.B) {
 			b.ReportAllocs()
 			var size int
 			for b.Loop() {
-				p := Build(a, sel, DefaultModels(), "touchledger")
+				p := Build(a, sel, query.Models(), "touchledger")
 				out, err := Render(p)
 				if err != nil {
 					b.Fatal(err)

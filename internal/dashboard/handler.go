@@ -18,7 +18,6 @@ import (
 	"time"
 
 	"github.com/touchledger/touchledger/internal/config"
-	"github.com/touchledger/touchledger/internal/credit"
 	"github.com/touchledger/touchledger/internal/query"
 )
 
@@ -34,15 +33,6 @@ type Options struct {
 	Models []string
 	// Title heads the page. Default "touchledger".
 	Title string
-}
-
-// DefaultModels are the models shown when Options.Models is empty.
-func DefaultModels() []string {
-	var m []string
-	for _, r := range credit.RuleModels {
-		m = append(m, r.String())
-	}
-	return append(m, query.ModelMarkov, query.ModelShapley)
 }
 
 // Parameter defaults and bounds.
@@ -83,7 +73,7 @@ const contentSecurityPolicy = "default-src 'none'; style-src 'self'; img-src 'se
 // Unknown or repeated parameters and bad values answer 400.
 func NewHandler(o Options) http.Handler {
 	if len(o.Models) == 0 {
-		o.Models = DefaultModels()
+		o.Models = query.Models()
 	}
 	if o.Title == "" {
 		o.Title = "touchledger"
@@ -155,18 +145,32 @@ func (h *handler) ServeHTTP(w http.ResponseWriter, r *http.Request) {
 func Fetch(q *query.Querier, sel Selection, models []string) Answers {
 	span := query.Span{Last: sel.Last}
 	a := Answers{Latest: q.Latest()}
-	a.Shift, a.ShiftErr = q.Shift(sel.Model, 1, sel.Days)
+	var ans query.Answer
+	if ans, a.ShiftErr = q.Answer(query.Request{Kind: query.KindShift, Model: sel.Model, Days: sel.Days}); a.ShiftErr == nil {
+		a.Shift = *ans.Shift
+	}
 	for _, m := range models {
-		c, err := q.Credit(m, query.ByChannel, 1, span)
-		a.Credit = append(a.Credit, ModelCredit{Model: m, Answer: c, Err: err})
+		c := ModelCredit{Model: m}
+		if ans, c.Err = q.Answer(query.Request{Kind: query.KindCredit, Model: m, Window: span}); c.Err == nil {
+			c.Answer = *ans.Credit
+		}
+		a.Credit = append(a.Credit, c)
 	}
-	a.Channels, a.ChannelsErr = q.Transitions("channel", 1, span)
-	a.Actions, a.FlowErr = q.Transitions("action", 0, span)
-	if a.FlowErr == nil {
-		a.Paths, a.FlowErr = q.Paths("action", MainPaths, span)
+	if ans, a.ChannelsErr = q.Answer(query.Request{Kind: query.KindTransitions, Level: query.LevelChannel, Window: span}); a.ChannelsErr == nil {
+		a.Channels = *ans.Transitions
 	}
-	a.Funnel, a.FunnelErr = q.Funnel(span)
-	a.Alerts, a.AlertsErr = q.Alerts(span, true)
+	if ans, a.FlowErr = q.Answer(query.Request{Kind: query.KindTransitions, Level: query.LevelAction, Window: span}); a.FlowErr == nil {
+		a.Actions = *ans.Transitions
+		if ans, a.FlowErr = q.Answer(query.Request{Kind: query.KindPaths, Level: query.LevelAction, Top: MainPaths, Window: span}); a.FlowErr == nil {
+			a.Paths = *ans.Paths
+		}
+	}
+	if ans, a.FunnelErr = q.Answer(query.Request{Kind: query.KindFunnel, Window: span}); a.FunnelErr == nil {
+		a.Funnel = *ans.Funnel
+	}
+	if ans, a.AlertsErr = q.Answer(query.Request{Kind: query.KindAlerts, Points: true, Window: span}); a.AlertsErr == nil {
+		a.Alerts = *ans.Alerts
+	}
 	return a
 }
 

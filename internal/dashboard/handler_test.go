@@ -45,7 +45,7 @@ func TestHandlerPageFromReplayedDemo(t *testing.T) {
 			}
 			// The same questions, asked of a fresh querier, give the numbers
 			// the page must carry.
-			s, err := (&handler{opts: Options{Models: DefaultModels()}}).parse(httptest.NewRequest(http.MethodGet, target, nil).URL.Query())
+			s, err := (&handler{opts: Options{Models: query.Models()}}).parse(httptest.NewRequest(http.MethodGet, target, nil).URL.Query())
 			if err != nil {
 				t.Fatal(err)
 			}
@@ -53,7 +53,7 @@ func TestHandlerPageFromReplayedDemo(t *testing.T) {
 			if err != nil {
 				t.Fatal(err)
 			}
-			a := Fetch(q, s, DefaultModels())
+			a := Fetch(q, s, query.Models())
 			q.Close()
 			for _, e := range []error{a.ShiftErr, a.ChannelsErr, a.FlowErr, a.FunnelErr, a.AlertsErr} {
 				if e != nil {
@@ -111,7 +111,7 @@ func TestHandlerShowsTheIncident(t *testing.T) {
 		t.Fatal(err)
 	}
 	defer q.Close()
-	a, err := q.Shift(DefaultModels()[0], 1, DefaultDays)
+	a, err := q.Shift(query.Models()[0], 1, DefaultDays)
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -98,7 +98,7 @@ type Table struct {
 func Build(a Answers, sel Selection, models []string, title string) Page {
 	p := Page{Title: title, Refresh: RefreshSeconds, Latest: a.Latest.UTC().Format("2006-01-02 15:04:05") + " UTC",
 		Window: "last " + durationLabel(sel.Last) + " up to the latest event", Form: form(sel, models), CSS: cssPath}
-	if a.Funnel.From != "" {
+	if !a.Funnel.From.IsZero() {
 		p.Window += " (" + timeText(a.Funnel.From) + " to " + timeText(a.Funnel.To) + ")"
 	}
 	p.Warnings = partialWarnings(a)
@@ -554,24 +554,17 @@ func alertSummary(a query.AlertsAnswer) string {
 		count, timeText(al.Opened), when, Percent.format(al.Peak), Percent.format(al.Baseline), Percent.format(al.Limit))
 }
 
-// timeText shows an RFC 3339 time of an answer as "Oct 8 15:15 UTC" (the
-// text itself when it does not parse).
-func timeText(s string) string {
-	t, err := time.Parse(time.RFC3339, s)
-	if err != nil {
-		return s
-	}
-	return t.UTC().Format("Jan 2 15:04") + " UTC"
-}
+// timeText shows a time of an answer as "Oct 8 15:15 UTC".
+func timeText(t time.Time) string { return t.UTC().Format("Jan 2 15:04") + " UTC" }
 
 func alertTable(a query.AlertsAnswer) Table {
 	t := Table{Caption: "Alerts in the window", Head: []string{"opened", "closed", "rate at opening", "peak", "baseline", "limit"}}
 	for _, al := range a.Alerts {
-		closed := al.Closed
-		if al.Open {
-			closed = "still open"
+		closed := "still open"
+		if !al.Closed.IsZero() {
+			closed = query.FormatTime(al.Closed)
 		}
-		t.Rows = append(t.Rows, []string{al.Opened, closed, Percent.format(al.Rate), Percent.format(al.Peak), Percent.format(al.Baseline), Percent.format(al.Limit)})
+		t.Rows = append(t.Rows, []string{query.FormatTime(al.Opened), closed, Percent.format(al.Rate), Percent.format(al.Peak), Percent.format(al.Baseline), Percent.format(al.Limit)})
 	}
 	return t
 }

@@ -60,7 +60,7 @@ func fixedAnswers() Answers {
 		{Path: "view_item" + pathstats.PathSeparator + "add_to_cart", Count: 30, Share: 0.3, Conversions: 3, ConversionRate: 0.1},
 		{Path: "add_to_cart", Count: 10, Share: 0.1},
 	}}
-	a.Funnel = query.FunnelAnswer{Sessions: 100, From: "2026-09-04T18:00:00Z", To: "2026-10-03T19:00:00Z", Steps: []query.FunnelStep{
+	a.Funnel = query.FunnelAnswer{Sessions: 100, Coverage: query.Coverage{From: time.Date(2026, 9, 4, 18, 0, 0, 0, time.UTC), To: time.Date(2026, 10, 3, 19, 0, 0, 0, time.UTC)}, Steps: []query.FunnelStep{
 		{Step: "view_item", Sessions: 100, Abandonment: 0.6},
 		{Step: "add_to_cart", Sessions: 40, Abandonment: 0.75},
 		{Step: "checkout", Sessions: 10, Abandonment: 0.3},
@@ -69,15 +69,15 @@ func fixedAnswers() Answers {
 	a.Alerts = query.AlertsAnswer{Name: "checkout_abandonment", Interval: (15 * time.Minute).String()}
 	t0 := time.Date(2026, 10, 3, 12, 0, 0, 0, time.UTC)
 	for i, r := range []float64{0, 0.3, 0.25, 0.35, 0.8, 0.9, 0.3, 0.2, 0.3} {
-		p := query.AlertPoint{Start: query.FormatTime(t0.Add(time.Duration(i) * 15 * time.Minute)), Sessions: 20, Abandons: int64(r * 20), Rate: r,
+		p := query.AlertPoint{Start: t0.Add(time.Duration(i) * 15 * time.Minute), Sessions: 20, Abandons: int64(r * 20), Rate: r,
 			Statistic: 0.3 + 0.01*float64(i), Baseline: 0.3, Limit: 0.5, Evaluated: i > 1}
 		if i == 0 {
 			p.Sessions, p.Abandons, p.Statistic, p.Baseline, p.Limit = 0, 0, 0, 0, 0
 		}
 		a.Alerts.Points = append(a.Alerts.Points, p)
 	}
-	a.Alerts.Alerts = []query.AlertRecord{{Name: "checkout_abandonment", Opened: query.FormatTime(t0.Add(60 * time.Minute)),
-		Closed: query.FormatTime(t0.Add(90 * time.Minute)), Rate: 0.8, Baseline: 0.3, Limit: 0.5, Peak: 0.9}}
+	a.Alerts.Alerts = []query.AlertRecord{{Name: "checkout_abandonment", Opened: t0.Add(60 * time.Minute),
+		Closed: t0.Add(90 * time.Minute), Rate: 0.8, Baseline: 0.3, Limit: 0.5, Peak: 0.9}}
 	return a
 }
 
@@ -256,7 +256,7 @@ func checkPage(t *testing.T, page []byte, a Answers) {
 		t.Errorf("abandonment: %d bands, want %d", len(bands), len(a.Alerts.Alerts))
 	}
 	for i, n := range bands {
-		if i < len(a.Alerts.Alerts) && (n.attr["data-opened"] != a.Alerts.Alerts[i].Opened || n.attr["data-closed"] != a.Alerts.Alerts[i].Closed) {
+		if i < len(a.Alerts.Alerts) && (n.attr["data-opened"] != query.FormatTime(a.Alerts.Alerts[i].Opened) || n.attr["data-closed"] != closedText(a.Alerts.Alerts[i].Closed)) {
 			t.Errorf("band %d = %s..%s, want %s..%s", i, n.attr["data-opened"], n.attr["data-closed"], a.Alerts.Alerts[i].Opened, a.Alerts.Alerts[i].Closed)
 		}
 	}
@@ -269,7 +269,7 @@ func checkPage(t *testing.T, page []byte, a Answers) {
 	}
 	if n := len(a.Alerts.Alerts); n > 0 {
 		zb := charts["abandonment-zoom"].all(func(n *xnode) bool { return n.attr["class"] == "alert-band" })
-		if len(zb) == 0 || zb[len(zb)-1].attr["data-opened"] != a.Alerts.Alerts[n-1].Opened {
+		if len(zb) == 0 || zb[len(zb)-1].attr["data-opened"] != query.FormatTime(a.Alerts.Alerts[n-1].Opened) {
 			t.Errorf("abandonment-zoom does not show the latest alert (opened %s)", a.Alerts.Alerts[n-1].Opened)
 		}
 	}
@@ -430,4 +430,12 @@ func TestShiftSummaryEdges(t *testing.T) {
 			t.Errorf("%s: got %q, want %q", tt.name, got, tt.want)
 		}
 	}
+}
+
+// closedText is an alert's closing time as the page writes it ("" while open).
+func closedText(t time.Time) string {
+	if t.IsZero() {
+		return ""
+	}
+	return query.FormatTime(t)
 }

@@ -130,6 +130,6 @@ func replayDemo(dir string, w demoWorld) (*state.Store, func() (*query.Querier, 
 	if cp.Counts.Accepted == 0 || cp.Counts.RejectedTotal() != 0 {
 		return fail(fmt.Errorf("replay counts %+v, want every event accepted", cp.Counts))
 	}
-	params := pipeline.QueryParams(c)
+	params := query.ParamsFrom(c)
 	return st, func() (*query.Querier, error) { return query.NewQuerier(st, params) }, nil
 }

@@ -15,7 +15,6 @@ import (
 	"github.com/nats-io/nats.go"
 
 	"github.com/touchledger/touchledger/internal/config"
-	"github.com/touchledger/touchledger/internal/credit"
 	"github.com/touchledger/touchledger/internal/query"
 	"github.com/touchledger/touchledger/internal/tally"
 )
@@ -67,15 +66,6 @@ type Options struct {
 	Now            func() time.Time // wall clock of the snapshots' "at" (default time.Now)
 }
 
-// AllModels lists every model: the rule-based ones, then markov and shapley.
-func AllModels() []string {
-	var out []string
-	for _, m := range credit.RuleModels {
-		out = append(out, m.String())
-	}
-	return append(out, query.ModelMarkov, query.ModelShapley)
-}
-
 func (o *Options) defaults() error {
 	switch {
 	case o.Conn == nil:
@@ -100,7 +90,7 @@ func (o *Options) defaults() error {
 		o.ReportWindow = DefaultReportWindow
 	}
 	if o.Models == nil {
-		o.Models = AllModels()
+		o.Models = query.Models()
 	}
 	if o.Log == nil {
 		o.Log = slog.New(slog.DiscardHandler)
@@ -219,11 +209,11 @@ func (f *Feed) settled(wm time.Time) time.Time {
 
 // evaluate lists the alerts of the final intervals before settled.
 func (f *Feed) evaluate(q *query.Querier, settled time.Time) (query.AlertsAnswer, error) {
-	a, err := q.Alerts(query.Span{From: settled.Add(-f.o.Lookback), To: settled}, false)
+	a, err := q.Answer(query.Request{Kind: query.KindAlerts, Window: query.Span{From: settled.Add(-f.o.Lookback), To: settled}})
 	if err != nil {
-		return a, fmt.Errorf("feed: alerts: %w", err)
+		return query.AlertsAnswer{}, fmt.Errorf("feed: alerts: %w", err)
 	}
-	return a, nil
+	return *a.Alerts, nil
 }
 
 // checkAlerts evaluates the chart when more intervals became final and
@@ -298,7 +288,7 @@ func (f *Feed) publishAlert(name, ev string, r query.AlertRecord) error {
 	m := nats.NewMsg(AlertSubject(f.o.Prefix, name))
 	m.Data = body
 	m.Header.Set(HeaderPartitions, f.o.Partitions)
-	m.Header.Set(HeaderMsgID, fmt.Sprintf("%s-%s-%d-%s", f.o.Partitions, token(name), parse(r.Opened).Unix(), ev))
+	m.Header.Set(HeaderMsgID, fmt.Sprintf("%s-%s-%d-%s", f.o.Partitions, token(name), r.Opened.Unix(), ev))
 	f.o.Log.Info("alert "+ev, "name", name, "opened", r.Opened, "closed", r.Closed, "rate", r.Rate)
 	return f.o.Conn.PublishMsg(m)
 }
@@ -328,12 +318,12 @@ func (f *Feed) report() {
 	at := f.o.Now().UTC().Format(time.RFC3339)
 	window := config.Duration(f.o.ReportWindow).String()
 	for _, model := range f.o.Models {
-		a, err := q.Credit(model, query.ByChannel, 0, query.Span{Last: f.o.ReportWindow})
+		ans, err := q.Answer(query.Request{Kind: query.KindCredit, Model: model, Window: query.Span{Last: f.o.ReportWindow}})
 		if err != nil {
 			f.o.Log.Warn("credit feed", "model", model, "err", err)
 			continue
 		}
-		body, err := json.Marshal(CreditMessage{CreditAnswer: a, ModelID: model, Window: window, Partitions: f.o.Partitions, At: at})
+		body, err := json.Marshal(CreditMessage{CreditAnswer: *ans.Credit, ModelID: model, Window: window, Partitions: f.o.Partitions, At: at})
 		if err != nil {
 			f.o.Log.Warn("credit feed", "model", model, "err", err)
 			continue

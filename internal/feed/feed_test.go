@@ -96,7 +96,7 @@ func (h *harness) start(o Options) {
 	h.st, h.p, h.w = st, p, w
 	o.Conn = h.nc
 	o.Partitions = w.Partitions().String()
-	o.Open = func() (*query.Querier, error) { return query.NewQuerier(st, pipeline.QueryParams(h.cfg)) }
+	o.Open = func() (*query.Querier, error) { return query.NewQuerier(st, query.ParamsFrom(h.cfg)) }
 	o.Watermark = func() time.Time { return p.Status().Watermark }
 	if wm, _ := p.Watermark(); wm != -1<<63 {
 		o.StartWatermark = time.Unix(0, wm).UTC()
@@ -234,8 +234,8 @@ func TestAlertFeed(t *testing.T) {
 	}
 	h.clock.set(3 * time.Minute) // event time passes 10:41 (slot 7's end + the gap)
 	opened := nextAlert(t, sub, 20*time.Second)
-	wantOpened := query.FormatTime(base.Add(35 * time.Minute)) // slot 7, §5's sixth spike interval
-	if opened.Event != EventOpened || opened.Opened != wantOpened || !opened.Open || opened.Closed != "" ||
+	wantOpened := base.Add(35 * time.Minute) // slot 7, §5's sixth spike interval
+	if opened.Event != EventOpened || !opened.Opened.Equal(wantOpened) || !opened.Open || !opened.Closed.IsZero() ||
 		opened.Rate != 0.16 || opened.Baseline != 0.10 || opened.Partitions != "0-15" || opened.Name != "add_to_cart_abandonment" {
 		t.Errorf("opened message %+v, want opened at %s with rate 0.16, baseline 0.10", opened, wantOpened)
 	}
@@ -255,8 +255,8 @@ func TestAlertFeed(t *testing.T) {
 	closed := nextAlert(t, sub, 20*time.Second)
 	// The last alerting interval is the one after the opening one (§5
 	// z_7 = 0.1166 is still above the limit): slot 9, ending at 10:50.
-	wantClosed := query.FormatTime(base.Add(50 * time.Minute))
-	if closed.Event != EventClosed || closed.Opened != wantOpened || closed.Open || closed.Closed != wantClosed {
+	wantClosed := base.Add(50 * time.Minute)
+	if closed.Event != EventClosed || !closed.Opened.Equal(wantOpened) || closed.Open || !closed.Closed.Equal(wantClosed) {
 		t.Errorf("closed message %+v, want opened %s closed %s", closed, wantOpened, wantClosed)
 	}
 	// Nothing more, several evaluations later.
@@ -268,7 +268,7 @@ func TestAlertFeed(t *testing.T) {
 	}
 
 	// Both messages equal the answer of `query alerts` on the final data.
-	q, err := query.NewQuerier(h.st, pipeline.QueryParams(cfg))
+	q, err := query.NewQuerier(h.st, query.ParamsFrom(cfg))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -281,7 +281,7 @@ func TestAlertFeed(t *testing.T) {
 		t.Errorf("query alerts %+v, feed closed %+v", a.Alerts, closed.AlertRecord)
 	} else {
 		want := a.Alerts[0]
-		want.Open, want.Closed, want.Peak = true, "", opened.Peak
+		want.Open, want.Closed, want.Peak = true, time.Time{}, opened.Peak
 		if opened.AlertRecord != want {
 			t.Errorf("opened %+v, want query alerts' record as open %+v", opened.AlertRecord, want)
 		}
@@ -298,7 +298,7 @@ func nextAlert(t *testing.T, sub *nats.Subscription, timeout time.Duration) Aler
 	if err := json.Unmarshal(m.Data, &a); err != nil {
 		t.Fatal(err)
 	}
-	if want := fmt.Sprintf("0-15-add_to_cart_abandonment-%d-%s", parse(a.Opened).Unix(), a.Event); m.Header.Get(HeaderMsgID) != want ||
+	if want := fmt.Sprintf("0-15-add_to_cart_abandonment-%d-%s", a.Opened.Unix(), a.Event); m.Header.Get(HeaderMsgID) != want ||
 		m.Subject != "tl.alert.add_to_cart_abandonment" {
 		t.Errorf("subject %s, message id %q, want %q", m.Subject, m.Header.Get(HeaderMsgID), want)
 	}
@@ -381,16 +381,16 @@ func TestCreditSnapshots(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	q, err := query.NewQuerier(h.st, pipeline.QueryParams(cfg))
+	q, err := query.NewQuerier(h.st, query.ParamsFrom(cfg))
 	if err != nil {
 		t.Fatal(err)
 	}
 	defer q.Close()
 	seen := map[string]bool{}
-	for len(seen) < len(AllModels()) {
+	for len(seen) < len(query.Models()) {
 		m, err := sub.NextMsg(10 * time.Second)
 		if err != nil {
-			t.Fatalf("snapshots of %d models, want %d: %v", len(seen), len(AllModels()), err)
+			t.Fatalf("snapshots of %d models, want %d: %v", len(seen), len(query.Models()), err)
 		}
 		var got CreditMessage
 		if err := json.Unmarshal(m.Data, &got); err != nil {

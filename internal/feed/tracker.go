@@ -52,17 +52,17 @@ func transitions(s nameState, records []query.AlertRecord, settled time.Time) ([
 	var evs []string
 	emit := func(ev string, r query.AlertRecord) {
 		if ev == EventOpened {
-			r.Open, r.Closed = true, ""
+			r.Open, r.Closed = true, time.Time{}
 		}
 		recs, evs = append(recs, r), append(evs, ev)
 	}
 	done := parse(s.Done)
-	handled := ""
+	var handled time.Time
 	if s.Open != nil {
 		open := *s.Open
 		var match *query.AlertRecord
 		for i := range records {
-			if records[i].Opened == open.Opened {
+			if records[i].Opened.Equal(open.Opened) {
 				match = &records[i]
 				break
 			}
@@ -73,16 +73,16 @@ func transitions(s nameState, records []query.AlertRecord, settled time.Time) ([
 			s.Open = &r // keep the latest peak
 		case match != nil:
 			emit(EventClosed, *match)
-			s.Open, s.Done, done = nil, match.Opened, parse(match.Opened)
+			s.Open, s.Done, done = nil, query.FormatTime(match.Opened), match.Opened
 		default:
-			open.Open, open.Closed = false, query.FormatTime(settled)
+			open.Open, open.Closed = false, settled.UTC()
 			emit(EventClosed, open)
-			s.Open, s.Done, done = nil, open.Opened, parse(open.Opened)
+			s.Open, s.Done, done = nil, query.FormatTime(open.Opened), open.Opened
 		}
 		handled = open.Opened
 	}
 	for _, r := range records {
-		if r.Opened == handled || !parse(r.Opened).After(done) {
+		if r.Opened.Equal(handled) || !r.Opened.After(done) {
 			continue
 		}
 		if r.Open {
@@ -101,7 +101,7 @@ func transitions(s nameState, records []query.AlertRecord, settled time.Time) ([
 		}
 		emit(EventOpened, r)
 		emit(EventClosed, r)
-		s.Done, done = r.Opened, parse(r.Opened)
+		s.Done, done = query.FormatTime(r.Opened), r.Opened
 	}
 	return recs, evs, s
 }
@@ -116,8 +116,8 @@ func baseline(records []query.AlertRecord) nameState {
 			s.Open = &rc
 			continue
 		}
-		if parse(r.Opened).After(parse(s.Done)) {
-			s.Done = r.Opened
+		if r.Opened.After(parse(s.Done)) {
+			s.Done = query.FormatTime(r.Opened)
 		}
 	}
 	return s

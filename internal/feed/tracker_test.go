@@ -13,15 +13,17 @@ import (
 
 var t0 = time.Date(2026, 3, 2, 10, 0, 0, 0, time.UTC)
 
-func at(min int) string { return query.FormatTime(t0.Add(time.Duration(min) * time.Minute)) }
+func tm(min int) time.Time { return t0.Add(time.Duration(min) * time.Minute) }
+
+func at(min int) string { return query.FormatTime(tm(min)) }
 
 func openRec(opened int, peak float64) query.AlertRecord {
-	return query.AlertRecord{Name: "a", Opened: at(opened), Open: true, Rate: 0.16, Baseline: 0.1, Limit: 0.115, Peak: peak}
+	return query.AlertRecord{Name: "a", Opened: tm(opened), Open: true, Rate: 0.16, Baseline: 0.1, Limit: 0.115, Peak: peak}
 }
 
 func closedRec(opened, closed int) query.AlertRecord {
 	r := openRec(opened, 0.2)
-	r.Open, r.Closed = false, at(closed)
+	r.Open, r.Closed = false, tm(closed)
 	return r
 }
 
@@ -74,9 +76,9 @@ func TestTransitions(t *testing.T) {
 				recs, evs, next := transitions(s, st.records, t0.Add(time.Duration(st.settled)*time.Minute))
 				var got []string
 				for j, r := range recs {
-					g := evs[j] + " " + r.Opened
-					if evs[j] == EventClosed && r.Closed != closedOf(st.records, r.Opened) {
-						g += " at " + r.Closed
+					g := evs[j] + " " + query.FormatTime(r.Opened)
+					if evs[j] == EventClosed && !r.Closed.Equal(closedOf(st.records, r.Opened)) {
+						g += " at " + query.FormatTime(r.Closed)
 					}
 					if (evs[j] == EventOpened) != r.Open {
 						t.Errorf("step %d: %s message with open=%v", i, evs[j], r.Open)
@@ -93,13 +95,13 @@ func TestTransitions(t *testing.T) {
 }
 
 // closedOf returns the Closed time of the record opened at opened.
-func closedOf(records []query.AlertRecord, opened string) string {
+func closedOf(records []query.AlertRecord, opened time.Time) time.Time {
 	for _, r := range records {
-		if r.Opened == opened {
+		if r.Opened.Equal(opened) {
 			return r.Closed
 		}
 	}
-	return ""
+	return time.Time{}
 }
 
 func ptr(r query.AlertRecord) *query.AlertRecord { return &r }

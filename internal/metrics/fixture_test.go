@@ -119,7 +119,7 @@ func (f *fixture) replay(t testing.TB) pipeline.Checkpoint {
 }
 
 func (f *fixture) open() (*query.Querier, error) {
-	return query.NewQuerier(f.store, pipeline.QueryParams(f.cfg))
+	return query.NewQuerier(f.store, query.ParamsFrom(f.cfg))
 }
 
 func (f *fixture) querier(t *testing.T) *query.Querier {

@@ -12,7 +12,6 @@ import (
 
 	"github.com/prometheus/client_golang/prometheus"
 
-	"github.com/touchledger/touchledger/internal/credit"
 	"github.com/touchledger/touchledger/internal/event"
 	"github.com/touchledger/touchledger/internal/pipeline"
 	"github.com/touchledger/touchledger/internal/query"
@@ -90,15 +89,6 @@ type Options struct {
 	Now func() time.Time
 }
 
-// AllModels lists every model name in export order.
-func AllModels() []string {
-	var out []string
-	for _, m := range credit.RuleModels {
-		out = append(out, m.String())
-	}
-	return append(out, query.ModelMarkov, query.ModelShapley)
-}
-
 // withDefaults fills zero values.
 func (o Options) withDefaults() Options {
 	if o.LagTimeout == 0 {
@@ -111,7 +101,7 @@ func (o Options) withDefaults() Options {
 		o.MaxChannels = DefaultMaxChannels
 	}
 	if o.Models == nil {
-		o.Models = AllModels()
+		o.Models = query.Models()
 	}
 	if o.SessionGap == 0 {
 		o.SessionGap = DefaultSessionGap
@@ -145,10 +135,8 @@ func (o Options) Validate() error {
 	}
 	seen := map[string]bool{}
 	for _, m := range o.Models {
-		if !query.IsDataDriven(m) {
-			if _, err := credit.ParseModel(m); err != nil {
-				return fmt.Errorf("metrics: %w", err)
-			}
+		if err := (query.Request{Kind: query.KindCredit, Model: m}).Validate(); err != nil {
+			return fmt.Errorf("metrics: %w", err)
 		}
 		if seen[m] {
 			return fmt.Errorf("metrics: model %q listed twice", m)
@@ -334,22 +322,22 @@ func (m *Metrics) computeWindow(st pipeline.Status) (out []prometheus.Metric, co
 	}
 
 	for _, model := range m.opts.Models {
-		a, err := q.Credit(model, query.ByChannel, 0, query.Span{Last: m.opts.Window})
+		a, err := q.Answer(query.Request{Kind: query.KindCredit, Model: model, Window: query.Span{Last: m.opts.Window}})
 		if err != nil {
 			fail(m.creditedConversions, fmt.Errorf("credit %s: %w", model, err))
 			continue
 		}
-		for _, c := range CapChannels(a.Channels, m.opts.MaxChannels) {
+		for _, c := range CapChannels(a.Credit.Channels, m.opts.MaxChannels) {
 			out = append(out,
 				constMetric(m.creditedConversions, prometheus.GaugeValue, c.Conversions, model, c.Channel),
 				constMetric(m.creditedValue, prometheus.GaugeValue, c.Value, model, c.Channel))
 		}
 	}
 
-	if f, err := q.Funnel(query.Span{Last: m.opts.SessionGap}); err != nil {
+	if f, err := q.Answer(query.Request{Kind: query.KindFunnel, Window: recent(q.Latest(), m.opts.SessionGap, m.opts.Interval)}); err != nil {
 		fail(m.openSessions, fmt.Errorf("open sessions: %w", err))
 	} else {
-		out = append(out, constMetric(m.openSessions, prometheus.GaugeValue, float64(f.Sessions)))
+		out = append(out, constMetric(m.openSessions, prometheus.GaugeValue, float64(f.Funnel.Sessions)))
 	}
 
 	if n, err := openJourneys(q, m.opts.JourneyTimeout); err != nil {
@@ -359,9 +347,10 @@ func (m *Metrics) computeWindow(st pipeline.Status) (out []prometheus.Metric, co
 	}
 
 	from, to := LastCompleteInterval(st.Watermark, q.Latest(), m.opts.Interval)
-	if f, err := q.Funnel(query.Span{From: from, To: to}); err != nil {
+	if a, err := q.Answer(query.Request{Kind: query.KindFunnel, Window: query.Span{From: from, To: to}}); err != nil {
 		fail(m.abandonment, fmt.Errorf("abandonment: %w", err))
 	} else {
+		f := a.Funnel
 		for i, s := range f.Steps {
 			if i == len(f.Steps)-1 || s.Sessions == 0 {
 				continue
@@ -370,9 +359,10 @@ func (m *Metrics) computeWindow(st pipeline.Status) (out []prometheus.Metric, co
 		}
 	}
 
-	if a, err := q.Alerts(query.Span{Last: m.opts.Interval}, false); err != nil {
+	if ans, err := q.Answer(query.Request{Kind: query.KindAlerts, Window: recent(q.Latest(), m.opts.Interval, m.opts.Interval)}); err != nil {
 		fail(m.alertOpen, fmt.Errorf("alerts: %w", err))
 	} else {
+		a := ans.Alerts
 		open := 0.0
 		for _, r := range a.Alerts {
 			if r.Open {
@@ -382,6 +372,15 @@ func (m *Metrics) computeWindow(st pipeline.Status) (out []prometheus.Metric, co
 		out = append(out, constMetric(m.alertOpen, prometheus.GaugeValue, open, a.Name))
 	}
 	return out, complete
+}
+
+// recent is the window of length d ending just after latest, its edges
+// moved out to whole steps (the alert interval, a bucket size) so it is
+// covered exactly by fine buckets instead of being rounded to hours.
+func recent(latest time.Time, d, step time.Duration) query.Span {
+	to := latest.Truncate(step).Add(step)
+	from := latest.Add(-d).Truncate(step)
+	return query.Span{From: from, To: to}
 }
 
 // openJourneys sums the unconverted journeys whose last touch lies within

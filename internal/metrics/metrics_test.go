@@ -150,7 +150,7 @@ func TestCreditedGaugesEqualCreditAnswer(t *testing.T) {
 	if purchases == 0 {
 		t.Fatal("no purchases in the window: fixture too small")
 	}
-	for _, model := range metrics.AllModels() {
+	for _, model := range query.Models() {
 		a, err := q.Credit(model, query.ByChannel, 0, query.Span{Last: metrics.DefaultWindow})
 		if err != nil {
 			t.Fatal(err)
@@ -193,7 +193,7 @@ func TestChannelLabelsCapped(t *testing.T) {
 	metrics.New(reg, metrics.Options{Status: f.proc, OpenQuerier: f.open, MaxChannels: limit})
 	g := gather(t, reg)
 	q := f.querier(t)
-	for _, model := range metrics.AllModels() {
+	for _, model := range query.Models() {
 		a, err := q.Credit(model, query.ByChannel, 0, query.Span{Last: metrics.DefaultWindow})
 		if err != nil {
 			t.Fatal(err)

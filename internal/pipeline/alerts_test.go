@@ -57,7 +57,7 @@ func TestAbandonmentSpikeOpensAlert(t *testing.T) {
 		t.Fatal(err)
 	}
 	defer st.Close()
-	q, err := query.NewQuerier(st, QueryParams(c))
+	q, err := query.NewQuerier(st, query.ParamsFrom(c))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -71,15 +71,15 @@ func TestAbandonmentSpikeOpensAlert(t *testing.T) {
 	}
 	al := a.Alerts[0]
 	wantOpen := base.Add(time.Duration(first+5) * 5 * time.Minute)
-	if al.Opened != query.FormatTime(wantOpen) {
+	if !al.Opened.Equal(wantOpen) {
 		t.Errorf("alert opened %s, want %s (the sixth interval of the spike)", al.Opened, query.FormatTime(wantOpen))
 	}
 	// z falls back below the limit two intervals after the spike (§5 z_7 =
 	// 0.1166 is still above it), so the last alerting interval is the one
 	// after the opening one; the alert closes at its end, once three quiet
 	// intervals (close_after) have confirmed it.
-	if wantClose := base.Add(time.Duration(first+7) * 5 * time.Minute); al.Open || al.Closed != query.FormatTime(wantClose) {
-		t.Errorf("alert closed %q (open %v), want %s", al.Closed, al.Open, query.FormatTime(wantClose))
+	if wantClose := base.Add(time.Duration(first+7) * 5 * time.Minute); al.Open || !al.Closed.Equal(wantClose) {
+		t.Errorf("alert closed %v (open %v), want %s", al.Closed, al.Open, query.FormatTime(wantClose))
 	}
 	if al.Rate != 0.16 || al.Baseline != 0.10 {
 		t.Errorf("rate %v baseline %v, want 0.16 and 0.10", al.Rate, al.Baseline)

@@ -178,7 +178,7 @@ func TestReplayPathStatisticsMatchIndependentComputation(t *testing.T) {
 		t.Fatal(err)
 	}
 	defer st.Close()
-	q, err := query.NewQuerier(st, QueryParams(config.Default()))
+	q, err := query.NewQuerier(st, query.ParamsFrom(config.Default()))
 	if err != nil {
 		t.Fatal(err)
 	}

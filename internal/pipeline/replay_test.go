@@ -83,7 +83,7 @@ func answers(t testing.TB, dir string) map[string]query.CreditAnswer {
 		t.Fatal(err)
 	}
 	defer st.Close()
-	q, err := query.NewQuerier(st, QueryParams(config.Default()))
+	q, err := query.NewQuerier(st, query.ParamsFrom(config.Default()))
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -3,12 +3,10 @@ package pipeline
 import (
 	"os"
 
-	"github.com/touchledger/touchledger/internal/alert"
 	"github.com/touchledger/touchledger/internal/config"
 	"github.com/touchledger/touchledger/internal/credit"
 	"github.com/touchledger/touchledger/internal/event"
 	"github.com/touchledger/touchledger/internal/privacy"
-	"github.com/touchledger/touchledger/internal/query"
 	"github.com/touchledger/touchledger/internal/sessionize"
 	"github.com/touchledger/touchledger/internal/state"
 )
@@ -56,30 +54,6 @@ func StoreOptions(dir string, c config.Config) state.Options {
 	o.BlockCacheMiB = c.Store.BlockCacheMiB
 	o.IndexCacheMiB = c.Store.IndexCacheMiB
 	return o
-}
-
-// QueryParams builds the query-time settings from the file configuration.
-func QueryParams(c config.Config) query.Params {
-	step := c.Alert.Interval.D()
-	return query.Params{
-		Direct:          c.DirectChannel,
-		MarkovMaxOrder:  c.MarkovMaxOrder,
-		CollapseRepeats: c.CollapseRepeats,
-		PathMaxLen:      c.PathMaxLen,
-		ShapleyCap:      c.ShapleyCap,
-		FunnelSteps:     c.FunnelSteps,
-		CartStep:        c.CartStep,
-		AlertInterval:   step,
-		AlertStep:       c.Alert.Step,
-		Alert: alert.Params{
-			Lambda:      c.Alert.Lambda,
-			L:           c.Alert.Limit,
-			MinSessions: int64(c.Alert.MinSessions),
-			Baseline:    max(1, int(c.Alert.Baseline.D()/step)),
-			CloseAfter:  c.Alert.CloseAfter,
-			Target:      c.Alert.Target,
-		},
-	}
 }
 
 // PseudonymsFrom loads the pseudonymisation key named by the configuration

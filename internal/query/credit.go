@@ -14,10 +14,8 @@ import (
 // CreditAnswer is the answer of `query credit`. Its JSON form is part of the
 // interface (CLI, HTTP and NATS answers share it).
 type CreditAnswer struct {
-	Model       string          `json:"model"`
-	From        string          `json:"from"`
-	To          string          `json:"to"`
-	Rounded     bool            `json:"rounded,omitempty"` // the window was widened to bucket edges
+	Model string `json:"model"`
+	Coverage
 	By          string          `json:"by"`
 	Conversions int64           `json:"conversions"`
 	Value       float64         `json:"value"`
@@ -66,7 +64,7 @@ func FormatTime(t time.Time) string { return t.UTC().Format(time.RFC3339) }
 // shares were apportioned to sum exactly to 1e9 units, so Σ conversions equals
 // the number of conversions in the window.
 func RuleCredit(model string, by string, plan Plan, totals, creditT tally.Table) CreditAnswer {
-	a := CreditAnswer{Model: model, From: FormatTime(plan.From), To: FormatTime(plan.To), Rounded: plan.Rounded, By: by}
+	a := CreditAnswer{Model: model, Coverage: plan.Coverage, By: by}
 	tot := totals[""]
 	a.Conversions = tot[0]
 	a.Value = float64(tot[1]) / event.ValueScale

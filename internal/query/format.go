@@ -8,6 +8,7 @@ import (
 	"strconv"
 	"strings"
 	"text/tabwriter"
+	"time"
 )
 
 // Format names an output format.
@@ -83,7 +84,7 @@ func WriteCredit(w io.Writer, a CreditAnswer, f Format, chart bool) error {
 			return err
 		}
 		for _, c := range a.Channels {
-			row := []string{a.Model, a.From, a.To, c.Channel}
+			row := []string{a.Model, FormatTime(a.From), FormatTime(a.To), c.Channel}
 			if a.By == ByCampaign {
 				row = append(row, deref(c.Campaign))
 			}
@@ -96,10 +97,7 @@ func WriteCredit(w io.Writer, a CreditAnswer, f Format, chart bool) error {
 		cw.Flush()
 		return cw.Error()
 	}
-	fmt.Fprintf(w, "credit by %s · model %s · %s to %s", a.By, a.Model, a.From, a.To)
-	if a.Rounded {
-		fmt.Fprint(w, " (widened to bucket edges)")
-	}
+	fmt.Fprintf(w, "credit by %s · model %s · %s", a.By, a.Model, a.Coverage)
 	fmt.Fprintf(w, "\n%d conversions, value %s\n\n", a.Conversions, f2(a.Value))
 	for _, n := range a.Notes {
 		fmt.Fprintf(w, "note: %s\n", n)
@@ -145,6 +143,16 @@ func WriteCredit(w io.Writer, a CreditAnswer, f Format, chart bool) error {
 		fmt.Fprintln(tw, "(no conversions in this window)\t")
 	}
 	return tw.Flush()
+}
+
+// String writes the span for people: "2026-10-01T00:00:00Z to
+// 2026-10-08T00:00:00Z", followed by why it was rounded when it was.
+func (c Coverage) String() string {
+	s := FormatTime(c.From) + " to " + FormatTime(c.To)
+	if c.Rounded {
+		s += " (rounded: " + c.Rounding + ")"
+	}
+	return s
 }
 
 func deref(s *string) string {
@@ -227,30 +235,21 @@ func spark(x float64) rune {
 	return blocks[i]
 }
 
-// WriteStatus writes a status summary.
-func WriteStatus(w io.Writer, s Summary, p Plan, f Format) error {
+// WriteStatus writes a status answer.
+func WriteStatus(w io.Writer, s StatusAnswer, f Format) error {
 	if err := writePartial(w, s.MissingPartitions, f); err != nil {
 		return err
 	}
-	type out struct {
-		From string `json:"from"`
-		To   string `json:"to"`
-		Summary
-	}
-	o := out{FormatTime(p.From), FormatTime(p.To), s}
+	latest := s.Latest.Format(time.RFC3339Nano)
 	switch f {
 	case JSON:
-		return WriteJSON(w, o)
+		return WriteJSON(w, s)
 	case CSV:
-		cw := csv.NewWriter(w)
-		cw.Write([]string{"from", "to", "latest_event", "conversions", "value", "sessions", "actions", "touches"})
-		cw.Write([]string{o.From, o.To, s.Latest, strconv.FormatInt(s.Conversions, 10), strconv.FormatFloat(s.Value, 'f', -1, 64),
-			strconv.FormatInt(s.Sessions, 10), strconv.FormatInt(s.Actions, 10), strconv.FormatInt(s.Touches, 10)})
-		cw.Flush()
-		return cw.Error()
+		return csvOut(w, [][]string{{"from", "to", "rounded", "latest_event", "conversions", "value", "sessions", "actions", "touches"},
+			{FormatTime(s.From), FormatTime(s.To), strconv.FormatBool(s.Rounded), latest, fi(s.Conversions), ff(s.Value), fi(s.Sessions), fi(s.Actions), fi(s.Touches)}})
 	}
-	_, err := fmt.Fprintf(w, "window %s to %s\nlatest event %s\nconversions %d, value %s\nsessions %d, actions %d, touches %d\n",
-		o.From, o.To, s.Latest, s.Conversions, f2(s.Value), s.Sessions, s.Actions, s.Touches)
+	_, err := fmt.Fprintf(w, "window %s\nlatest event %s\nconversions %d, value %s\nsessions %d, actions %d, touches %d\n",
+		s.Coverage, latest, s.Conversions, f2(s.Value), s.Sessions, s.Actions, s.Touches)
 	return err
 }
 
@@ -276,7 +275,7 @@ func WriteTransitions(w io.Writer, a TransitionsAnswer, f Format) error {
 	case CSV:
 		rows := [][]string{{"level", "order", "from_time", "to_time", "from", "to", "count", "probability"}}
 		for _, t := range a.Transitions {
-			rows = append(rows, []string{a.Level, strconv.Itoa(a.Order), a.From, a.To, t.From, t.To, fi(t.Count), ff(t.Probability)})
+			rows = append(rows, []string{a.Level, strconv.Itoa(a.Order), FormatTime(a.From), FormatTime(a.To), t.From, t.To, fi(t.Count), ff(t.Probability)})
 		}
 		return csvOut(w, rows)
 	}
@@ -284,7 +283,7 @@ func WriteTransitions(w io.Writer, a TransitionsAnswer, f Format) error {
 	if a.Level == "channel" {
 		title = fmt.Sprintf("channel transitions of journeys (order %d)", a.Order)
 	}
-	fmt.Fprintf(w, "%s · %s to %s\n\n", title, a.From, a.To)
+	fmt.Fprintf(w, "%s · %s\n\n", title, a.Coverage)
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
 	fmt.Fprintln(tw, "FROM\tTO\tCOUNT\tPROBABILITY\t")
 	for _, t := range a.Transitions {
@@ -309,7 +308,7 @@ func WritePaths(w io.Writer, a PathsAnswer, f Format) error {
 	case CSV:
 		rows := [][]string{{"level", "from", "to", "path", "count", "share", "conversions", "conversion_rate"}}
 		for _, p := range a.Paths {
-			rows = append(rows, []string{a.Level, a.From, a.To, p.Path, fi(p.Count), ff(p.Share), fi(p.Conversions), ff(p.ConversionRate)})
+			rows = append(rows, []string{a.Level, FormatTime(a.From), FormatTime(a.To), p.Path, fi(p.Count), ff(p.Share), fi(p.Conversions), ff(p.ConversionRate)})
 		}
 		return csvOut(w, rows)
 	}
@@ -317,7 +316,7 @@ func WritePaths(w io.Writer, a PathsAnswer, f Format) error {
 	if a.Level == "channel" {
 		what = "journeys (channels, ending in conversion or null)"
 	}
-	fmt.Fprintf(w, "most frequent paths of %s · %s to %s · %d in all\n\n", what, a.From, a.To, a.Total)
+	fmt.Fprintf(w, "most frequent paths of %s · %s · %d in all\n\n", what, a.Coverage, a.Total)
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
 	fmt.Fprintln(tw, "COUNT\tSHARE\tCONVERSION RATE\tPATH\t")
 	for _, p := range a.Paths {
@@ -337,11 +336,11 @@ func WriteFunnel(w io.Writer, a FunnelAnswer, f Format) error {
 	case CSV:
 		rows := [][]string{{"from", "to", "step", "sessions", "abandonment"}}
 		for _, s := range a.Steps {
-			rows = append(rows, []string{a.From, a.To, s.Step, fi(s.Sessions), ff(s.Abandonment)})
+			rows = append(rows, []string{FormatTime(a.From), FormatTime(a.To), s.Step, fi(s.Sessions), ff(s.Abandonment)})
 		}
 		return csvOut(w, rows)
 	}
-	fmt.Fprintf(w, "closed funnel of %d sessions ending %s to %s\n\n", a.Sessions, a.From, a.To)
+	fmt.Fprintf(w, "closed funnel of %d sessions ending %s\n\n", a.Sessions, a.Coverage)
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
 	fmt.Fprintln(tw, "STEP\tSESSIONS\tDROP TO NEXT\t\t")
 	var first int64
@@ -376,22 +375,22 @@ func WriteAlerts(w io.Writer, a AlertsAnswer, f Format) error {
 	case CSV:
 		rows := [][]string{{"name", "opened", "closed", "open", "rate", "baseline", "limit", "peak"}}
 		for _, x := range a.Alerts {
-			rows = append(rows, []string{x.Name, x.Opened, x.Closed, strconv.FormatBool(x.Open), ff(x.Rate), ff(x.Baseline), ff(x.Limit), ff(x.Peak)})
+			rows = append(rows, []string{x.Name, FormatTime(x.Opened), closedText(x.Closed), strconv.FormatBool(x.Open), ff(x.Rate), ff(x.Baseline), ff(x.Limit), ff(x.Peak)})
 		}
 		return csvOut(w, rows)
 	}
-	fmt.Fprintf(w, "%s alerts · %s intervals · %s to %s\n\n", strings.ReplaceAll(a.Name, "_", " "), a.Interval, a.From, a.To)
+	fmt.Fprintf(w, "%s alerts · %s intervals · %s\n\n", strings.ReplaceAll(a.Name, "_", " "), a.Interval, a.Coverage)
 	if len(a.Alerts) == 0 {
 		fmt.Fprintln(w, "no alerts in this window")
 	} else {
 		tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
 		fmt.Fprintln(tw, "OPENED\tCLOSED\tRATE\tBASELINE\tLIMIT\tPEAK\t")
 		for _, x := range a.Alerts {
-			closed := x.Closed
+			closed := closedText(x.Closed)
 			if x.Open {
 				closed = "(open)"
 			}
-			fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\t\n", x.Opened, closed, pct(x.Rate), pct(x.Baseline), pct(x.Limit), pct(x.Peak))
+			fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\t\n", FormatTime(x.Opened), closed, pct(x.Rate), pct(x.Baseline), pct(x.Limit), pct(x.Peak))
 		}
 		tw.Flush()
 	}
@@ -408,9 +407,17 @@ func WriteAlerts(w io.Writer, a AlertsAnswer, f Format) error {
 			if !p.Evaluated {
 				stat, lim, mark = "-", "-", "(too few sessions)"
 			}
-			fmt.Fprintf(tw, "%s\t%d\t%d\t%s\t%s\t%s\t%s\t\n", p.Start, p.Sessions, p.Abandons, pct(p.Rate), stat, lim, mark)
+			fmt.Fprintf(tw, "%s\t%d\t%d\t%s\t%s\t%s\t%s\t\n", FormatTime(p.Start), p.Sessions, p.Abandons, pct(p.Rate), stat, lim, mark)
 		}
 		tw.Flush()
 	}
 	return nil
+}
+
+// closedText is an alert's closing time, empty while open.
+func closedText(t time.Time) string {
+	if t.IsZero() {
+		return ""
+	}
+	return FormatTime(t)
 }

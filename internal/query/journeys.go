@@ -10,6 +10,7 @@ import (
 	"time"
 
 	"github.com/touchledger/touchledger/internal/alert"
+	"github.com/touchledger/touchledger/internal/config"
 	"github.com/touchledger/touchledger/internal/credit"
 	"github.com/touchledger/touchledger/internal/event"
 	"github.com/touchledger/touchledger/internal/pathstats"
@@ -19,16 +20,40 @@ import (
 // Params are the query-time settings of the data-driven models, paths,
 // funnel and alerts (from the configuration file).
 type Params struct {
-	Direct          string
-	MarkovMaxOrder  int
-	CollapseRepeats bool // Markov paths collapse consecutive repeats of a channel
-	PathMaxLen      int  // path keys show at most this many steps
-	ShapleyCap      int
-	FunnelSteps     []string
-	CartStep        string
-	AlertInterval   time.Duration
-	AlertStep       string       // funnel step whose abandonment is watched
-	Alert           alert.Params // Baseline in intervals
+	Direct          string        `json:"direct_channel"`
+	MarkovMaxOrder  int           `json:"markov_max_order"`
+	CollapseRepeats bool          `json:"collapse_repeats"` // Markov paths collapse consecutive repeats of a channel
+	PathMaxLen      int           `json:"path_max_len"`     // path keys show at most this many steps
+	ShapleyCap      int           `json:"shapley_cap"`
+	FunnelSteps     []string      `json:"funnel_steps"`
+	CartStep        string        `json:"cart_step"`
+	AlertInterval   time.Duration `json:"alert_interval_ns"`
+	AlertStep       string        `json:"alert_step"` // funnel step whose abandonment is watched
+	Alert           alert.Params  `json:"alert"`      // Baseline in intervals
+}
+
+// ParamsFrom builds the query-time settings from the file configuration.
+func ParamsFrom(c config.Config) Params {
+	step := c.Alert.Interval.D()
+	return Params{
+		Direct:          c.DirectChannel,
+		MarkovMaxOrder:  c.MarkovMaxOrder,
+		CollapseRepeats: c.CollapseRepeats,
+		PathMaxLen:      c.PathMaxLen,
+		ShapleyCap:      c.ShapleyCap,
+		FunnelSteps:     c.FunnelSteps,
+		CartStep:        c.CartStep,
+		AlertInterval:   step,
+		AlertStep:       c.Alert.Step,
+		Alert: alert.Params{
+			Lambda:      c.Alert.Lambda,
+			L:           c.Alert.Limit,
+			MinSessions: int64(c.Alert.MinSessions),
+			Baseline:    max(1, int(c.Alert.Baseline.D()/step)),
+			CloseAfter:  c.Alert.CloseAfter,
+			Target:      c.Alert.Target,
+		},
+	}
 }
 
 // Data-driven model names.
@@ -126,7 +151,7 @@ func MarkovCounts(paths tally.Table, k int, collapse bool) []credit.TransitionCo
 // conversion-rate value function normalised over channels, and may be
 // negative.
 func DataDrivenCredit(model string, order int, plan Plan, p Params, totals, paths tally.Table) (CreditAnswer, error) {
-	a := CreditAnswer{Model: model, From: FormatTime(plan.From), To: FormatTime(plan.To), Rounded: plan.Rounded, By: ByChannel}
+	a := CreditAnswer{Model: model, Coverage: plan.Coverage, By: ByChannel}
 	tot := totals[""]
 	a.Conversions = tot[0]
 	a.Value = float64(tot[1]) / event.ValueScale
@@ -226,10 +251,9 @@ func DataDrivenCredit(model string, order int, plan Plan, p Params, totals, path
 
 // TransitionsAnswer is the answer of `query transitions`.
 type TransitionsAnswer struct {
-	Level             string       `json:"level"`
-	Order             int          `json:"order,omitempty"`
-	From              string       `json:"from"`
-	To                string       `json:"to"`
+	Level string `json:"level"`
+	Order int    `json:"order,omitempty"`
+	Coverage
 	Transitions       []Transition `json:"transitions"`
 	MissingPartitions []int        `json:"missing_partitions,omitempty"` // partitions that did not answer
 }
@@ -283,7 +307,7 @@ const (
 // Markov order k, as the Markov model sees them) or session paths (level
 // action), with row probabilities p(a,b) = c(a,b) / Σ_b' c(a,b').
 func Transitions(level string, order int, collapse bool, plan Plan, paths tally.Table) TransitionsAnswer {
-	a := TransitionsAnswer{Level: level, From: FormatTime(plan.From), To: FormatTime(plan.To)}
+	a := TransitionsAnswer{Level: level, Coverage: plan.Coverage}
 	var rows []Transition
 	if level == "channel" {
 		a.Order = order
@@ -337,9 +361,8 @@ func Transitions(level string, order int, collapse bool, plan Plan, paths tally.
 
 // PathsAnswer is the answer of `query paths`.
 type PathsAnswer struct {
-	Level             string     `json:"level"`
-	From              string     `json:"from"`
-	To                string     `json:"to"`
+	Level string `json:"level"`
+	Coverage
 	Total             int64      `json:"total"` // sessions or journeys in the window
 	Paths             []PathStat `json:"paths"`
 	MissingPartitions []int      `json:"missing_partitions,omitempty"` // partitions that did not answer
@@ -359,7 +382,7 @@ type PathStat struct {
 // conversion or null (for a channel path the conversion rate is 1 or 0 by
 // construction). Paths longer than maxLen are shown cut with an ellipsis.
 func Paths(level string, top, maxLen int, plan Plan, t tally.Table) PathsAnswer {
-	a := PathsAnswer{Level: level, From: FormatTime(plan.From), To: FormatTime(plan.To)}
+	a := PathsAnswer{Level: level, Coverage: plan.Coverage}
 	type agg struct{ n, conv int64 }
 	keys := map[string]*agg{}
 	add := func(k string, n, c int64) {
@@ -416,8 +439,7 @@ func Paths(level string, top, maxLen int, plan Plan, t tally.Table) PathsAnswer 
 
 // FunnelAnswer is the answer of `query funnel`.
 type FunnelAnswer struct {
-	From              string       `json:"from"`
-	To                string       `json:"to"`
+	Coverage
 	Sessions          int64        `json:"sessions"`
 	Steps             []FunnelStep `json:"steps"`
 	CartSessions      int64        `json:"cart_sessions"`
@@ -439,7 +461,7 @@ type FunnelStep struct {
 // reached(i+1)/reached(i) (common practice); cart abandonment = cart
 // sessions without a conversion / cart sessions.
 func Funnel(steps []string, plan Plan, t tally.Table) FunnelAnswer {
-	a := FunnelAnswer{From: FormatTime(plan.From), To: FormatTime(plan.To)}
+	a := FunnelAnswer{Coverage: plan.Coverage}
 	reached := make([]int64, len(steps))
 	var cart, cartConv int64
 	for dims, v := range t {
@@ -473,9 +495,8 @@ func Funnel(steps []string, plan Plan, t tally.Table) FunnelAnswer {
 
 // AlertsAnswer is the answer of `query alerts`.
 type AlertsAnswer struct {
-	Name              string        `json:"name"` // what is watched, e.g. checkout_abandonment
-	From              string        `json:"from"`
-	To                string        `json:"to"`
+	Name string `json:"name"` // what is watched, e.g. checkout_abandonment
+	Coverage
 	Interval          string        `json:"interval"`
 	Alerts            []AlertRecord `json:"alerts"`
 	Points            []AlertPoint  `json:"points,omitempty"`
@@ -484,27 +505,27 @@ type AlertsAnswer struct {
 
 // AlertRecord is one abandonment alert.
 type AlertRecord struct {
-	Name     string  `json:"name"`
-	Opened   string  `json:"opened"`
-	Closed   string  `json:"closed,omitempty"` // empty while open
-	Open     bool    `json:"open"`
-	Rate     float64 `json:"rate"`
-	Baseline float64 `json:"baseline"`
-	Limit    float64 `json:"limit"`
-	Peak     float64 `json:"peak"`
+	Name     string    `json:"name"`
+	Opened   time.Time `json:"opened"`
+	Closed   time.Time `json:"closed,omitzero"` // zero while open
+	Open     bool      `json:"open"`
+	Rate     float64   `json:"rate"`
+	Baseline float64   `json:"baseline"`
+	Limit    float64   `json:"limit"`
+	Peak     float64   `json:"peak"`
 }
 
 // AlertPoint is one interval of the chart.
 type AlertPoint struct {
-	Start     string  `json:"start"`
-	Sessions  int64   `json:"sessions"`
-	Abandons  int64   `json:"abandons"`
-	Rate      float64 `json:"rate"`
-	Statistic float64 `json:"statistic"`
-	Baseline  float64 `json:"baseline"`
-	Limit     float64 `json:"limit"`
-	Evaluated bool    `json:"evaluated"` // false: too few sessions (min_sessions) or no baseline yet
-	Alerting  bool    `json:"alerting"`
+	Start     time.Time `json:"start"`
+	Sessions  int64     `json:"sessions"`
+	Abandons  int64     `json:"abandons"`
+	Rate      float64   `json:"rate"`
+	Statistic float64   `json:"statistic"`
+	Baseline  float64   `json:"baseline"`
+	Limit     float64   `json:"limit"`
+	Evaluated bool      `json:"evaluated"` // false: too few sessions (min_sessions) or no baseline yet
+	Alerting  bool      `json:"alerting"`
 }
 
 // StepIntervals turns per-bucket funnel tables into the abandonment series of
@@ -539,22 +560,22 @@ func StepIntervals(from, to time.Time, interval time.Duration, s, n int, buckets
 
 // Alerts runs the abandonment detector over the series.
 func Alerts(name string, plan Plan, interval time.Duration, series []alert.Interval, p alert.Params, withPoints bool) (AlertsAnswer, error) {
-	a := AlertsAnswer{Name: name, From: FormatTime(plan.From), To: FormatTime(plan.To), Interval: interval.String(), Alerts: []AlertRecord{}}
+	a := AlertsAnswer{Name: name, Coverage: plan.Coverage, Interval: interval.String(), Alerts: []AlertRecord{}}
 	pts, als, err := alert.Detect(series, p)
 	if err != nil {
 		return a, err
 	}
 	for _, x := range als {
-		r := AlertRecord{Name: name, Opened: FormatTime(x.Opened), Open: x.Closed.IsZero(),
+		r := AlertRecord{Name: name, Opened: x.Opened.UTC(), Open: x.Closed.IsZero(),
 			Rate: x.Rate, Baseline: x.Baseline, Limit: x.Limit, Peak: x.Peak}
 		if !x.Closed.IsZero() {
-			r.Closed = FormatTime(x.Closed)
+			r.Closed = x.Closed.UTC()
 		}
 		a.Alerts = append(a.Alerts, r)
 	}
 	if withPoints {
 		for _, pt := range pts {
-			a.Points = append(a.Points, AlertPoint{Start: FormatTime(pt.Start), Sessions: pt.Sessions, Abandons: pt.Abandons,
+			a.Points = append(a.Points, AlertPoint{Start: pt.Start.UTC(), Sessions: pt.Sessions, Abandons: pt.Abandons,
 				Rate: pt.Rate, Statistic: pt.Statistic, Baseline: pt.Baseline, Limit: pt.UCL, Evaluated: pt.Evaluated, Alerting: pt.Alerting})
 		}
 	}

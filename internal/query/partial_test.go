@@ -62,7 +62,7 @@ func TestWritersMarkPartialAnswers(t *testing.T) {
 		},
 		"status": func(m []int, f Format) (string, error) {
 			var b bytes.Buffer
-			err := WriteStatus(&b, Summary{MissingPartitions: m}, Plan{}, f)
+			err := WriteStatus(&b, StatusAnswer{MissingPartitions: m}, f)
 			return b.String(), err
 		},
 		"scorecard": func(m []int, f Format) (string, error) {

@@ -39,8 +39,7 @@ func ReadTruth(path string) (Truth, error) {
 // ScorecardAnswer compares each model's credit with the true incremental
 // conversions of a simulated world.
 type ScorecardAnswer struct {
-	From     string       `json:"from"`
-	To       string       `json:"to"`
+	Coverage
 	Channels []string     `json:"channels"`
 	True     []float64    `json:"true_share"` // per channel: incremental conversions / incremental total
 	Models   []ModelScore `json:"models"`     // best (smallest error) first
@@ -70,8 +69,8 @@ func Scorecard(answers []CreditAnswer, truth Truth) ScorecardAnswer {
 		a.True = append(a.True, truth.Channels[ch]/truth.IncrementalTotal)
 	}
 	for _, ans := range answers {
-		if a.From == "" {
-			a.From, a.To = ans.From, ans.To
+		if a.From.IsZero() {
+			a.Coverage = ans.Coverage
 		}
 		for _, p := range ans.MissingPartitions {
 			if !slices.Contains(a.MissingPartitions, p) {
@@ -118,7 +117,7 @@ func WriteScorecard(w io.Writer, a ScorecardAnswer, f Format) error {
 		}
 		return csvOut(w, rows)
 	}
-	fmt.Fprintf(w, "model scorecard · %s to %s\nshares of credit over the touch channels next to the simulated truth; error = Σ|share − true| (0 perfect; 2 = nothing in common; more only with negative shares)\n\n", a.From, a.To)
+	fmt.Fprintf(w, "model scorecard · %s\nshares of credit over the touch channels next to the simulated truth; error = Σ|share − true| (0 perfect; 2 = nothing in common; more only with negative shares)\n\n", a.Coverage)
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
 	head := "MODEL\tERROR\t"
 	for _, ch := range a.Channels {

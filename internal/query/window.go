@@ -3,8 +3,10 @@ package query
 import (
 	"errors"
 	"fmt"
+	"strings"
 	"time"
 
+	"github.com/touchledger/touchledger/internal/config"
 	"github.com/touchledger/touchledger/internal/state"
 	"github.com/touchledger/touchledger/internal/tally"
 )
@@ -17,13 +19,23 @@ type Piece struct {
 
 // Plan says which buckets answer a window.
 type Plan struct {
-	From, To time.Time // the window actually covered
-	Pieces   []Piece
-	Rounded  bool // the covered window differs from the one asked for
+	Coverage
+	Pieces []Piece
+}
+
+// Coverage is the span an answer actually covers: [From, To). Rounded says
+// that it differs from the window asked for, Rounding why (the bucket size
+// at the edges, and retention when finer buckets had expired there). Every
+// answer carries it, in JSON and in the table's heading.
+type Coverage struct {
+	From     time.Time `json:"from"`
+	To       time.Time `json:"to"`
+	Rounded  bool      `json:"rounded"`
+	Rounding string    `json:"rounding,omitempty"`
 }
 
 // ErrEmptyWindow is returned for a window that ends before it starts.
-var ErrEmptyWindow = errors.New("the window is empty: --from must be before --to")
+var ErrEmptyWindow = errors.New("the window is empty: from must be before to")
 
 // PlanWindow covers [from, to) with as few buckets as possible: the coarsest
 // bucket that fits at each point, finer ones at the edges. A resolution holds
@@ -52,7 +64,8 @@ func PlanWindow(res []state.Resolution, from, to, watermark time.Time) (Plan, er
 		return len(res) - 1
 	}
 	start := from.Unix() // floor: Time keeps nanoseconds in [0, 1e9)
-	s0 := steps[finestAt(start)]
+	r0 := finestAt(start)
+	s0 := steps[r0]
 	start = tally.FloorDiv(start, s0) * s0
 	end := to.Unix()
 	if to.Nanosecond() != 0 {
@@ -90,7 +103,28 @@ func PlanWindow(res []state.Resolution, from, to, watermark time.Time) (Plan, er
 	}
 	p.From, p.To = time.Unix(start, 0).UTC(), time.Unix(end, 0).UTC()
 	p.Rounded = !p.From.Equal(from) || !p.To.Equal(to)
+	if p.Rounded {
+		p.Rounding = roundingReason(res, r0, !p.From.Equal(from), !p.To.Equal(to))
+	}
 	return p, nil
+}
+
+// roundingReason says why a plan's edges moved: the start falls on buckets
+// of resolution r0 (coarser than the finest when finer buckets expired
+// there), the end on the finest buckets.
+func roundingReason(res []state.Resolution, r0 int, start, end bool) string {
+	var parts []string
+	if start {
+		why := "start moved back to a bucket edge (" + res[r0].Name + " buckets)"
+		if r0 > 0 {
+			why += fmt.Sprintf(" (retention: %s buckets are kept %s)", res[r0-1].Name, config.Duration(res[r0-1].Retention))
+		}
+		parts = append(parts, why)
+	}
+	if end {
+		parts = append(parts, "end moved on to a bucket edge ("+res[0].Name+" buckets)")
+	}
+	return strings.Join(parts, "; ")
 }
 
 // Sum adds family f over the plan's buckets into a new table.

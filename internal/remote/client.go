@@ -4,7 +4,9 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"reflect"
 	"slices"
+	"strings"
 	"sync"
 	"time"
 
@@ -35,6 +37,9 @@ type Worker struct {
 	IDs         []string  // micro service instance ids that answered for the range
 	HasData     bool      // some instance has committed events
 	Latest      time.Time // largest event time over the range's instances
+	// Params is the configuration the range announced (nil: a worker
+	// older than protocol 1.1).
+	Params *query.Params
 }
 
 // Source is a query.Source that asks every worker over NATS and adds their
@@ -48,6 +53,7 @@ type Source struct {
 	latest  time.Time
 	hasData bool
 	closed  bool
+	res     []Resolution // the workers' resolutions (all equal)
 }
 
 // ErrNoWorkers is returned when no worker answered discovery.
@@ -134,6 +140,7 @@ func (s *Source) discover() error {
 	if s.o.Resolutions != nil {
 		want = wireResolutions(s.o.Resolutions)
 	}
+	var firstRange string
 	n := s.o.Partitions
 	owner := make([]int, n) // index+1 into s.workers; 0: not covered
 	left := n
@@ -166,7 +173,13 @@ func (s *Source) discover() error {
 			return fmt.Errorf("remote: a worker claims partitions %d-%d, but there are %d partitions (0-%d): set the same partition count everywhere", r.First, r.Last, n, n-1)
 		}
 		if want != nil && !slices.Equal(want, r.Resolutions) {
+			if s.o.Resolutions == nil {
+				return fmt.Errorf("remote: workers keep different buckets: partitions %s keep %s, partitions %d-%d keep %s: give every worker the same store resolutions", firstRange, formatResolutions(want), r.First, r.Last, formatResolutions(r.Resolutions))
+			}
 			return fmt.Errorf("remote: the worker of partitions %d-%d keeps buckets %s, this query plans with %s: use the workers' configuration file", r.First, r.Last, formatResolutions(r.Resolutions), formatResolutions(want))
+		}
+		if want == nil {
+			want, firstRange = r.Resolutions, RangeToken(r.First, r.Last)
 		}
 		idx := -1
 		for i, w := range s.workers {
@@ -187,6 +200,9 @@ func (s *Source) discover() error {
 		}
 		w := &s.workers[idx]
 		w.IDs = append(w.IDs, r.ID)
+		if w.Params == nil {
+			w.Params = r.Params
+		}
 		if r.HasData {
 			t := time.Unix(0, r.LatestNanos).UTC()
 			if !w.HasData || t.After(w.Latest) {
@@ -202,6 +218,7 @@ func (s *Source) discover() error {
 	if len(s.workers) == 0 {
 		return fmt.Errorf("%w on %s within %v", ErrNoWorkers, subject, s.o.Timeout)
 	}
+	s.res = want
 	slices.SortFunc(s.workers, func(a, b Worker) int { return a.First - b.First })
 	for p, o := range owner {
 		if o == 0 {
@@ -209,6 +226,65 @@ func (s *Source) discover() error {
 		}
 	}
 	return nil
+}
+
+// ErrNoConfig is returned by Config when no worker announced its
+// configuration (workers older than protocol 1.1).
+var ErrNoConfig = errors.New("the workers did not announce their configuration (protocol before 1.1): give the configuration file")
+
+// Resolutions returns the bucket sizes every worker keeps.
+func (s *Source) Resolutions() []state.Resolution {
+	out := make([]state.Resolution, len(s.res))
+	for i, r := range s.res {
+		out[i] = state.Resolution{Name: r.Name, Step: time.Duration(r.StepSeconds) * time.Second, Retention: time.Duration(r.RetentionSeconds) * time.Second}
+	}
+	return out
+}
+
+// Config returns the query-time settings the workers announced. Workers
+// whose settings differ are an error naming the ranges and the settings
+// that differ: their tables would be read with one configuration, which is
+// wrong for some of them.
+func (s *Source) Config() (query.Params, error) {
+	var ref *Worker
+	var diffs []string
+	for i := range s.workers {
+		w := &s.workers[i]
+		if w.Params == nil {
+			continue
+		}
+		if ref == nil {
+			ref = w
+			continue
+		}
+		if d := paramsDiff(*ref.Params, *w.Params); d != "" {
+			diffs = append(diffs, fmt.Sprintf("partitions %s and %s differ in %s", RangeToken(ref.First, ref.Last), RangeToken(w.First, w.Last), d))
+		}
+	}
+	switch {
+	case ref == nil:
+		return query.Params{}, ErrNoConfig
+	case diffs != nil:
+		return query.Params{}, fmt.Errorf("remote: the workers run with different configurations: %s", strings.Join(diffs, "; "))
+	}
+	return *ref.Params, nil
+}
+
+// paramsDiff names the JSON fields in which a and b differ, "" if none.
+func paramsDiff(a, b query.Params) string {
+	var ma, mb map[string]any
+	ja, _ := json.Marshal(a)
+	jb, _ := json.Marshal(b)
+	_ = json.Unmarshal(ja, &ma)
+	_ = json.Unmarshal(jb, &mb)
+	var names []string
+	for k, v := range ma {
+		if !reflect.DeepEqual(v, mb[k]) {
+			names = append(names, k)
+		}
+	}
+	slices.Sort(names)
+	return strings.Join(names, ", ")
 }
 
 // Missing lists the partitions no worker answered for (nil when complete).

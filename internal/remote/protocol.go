@@ -8,6 +8,7 @@ import (
 	"strings"
 	"time"
 
+	"github.com/touchledger/touchledger/internal/query"
 	"github.com/touchledger/touchledger/internal/state"
 	"github.com/touchledger/touchledger/internal/tally"
 )
@@ -17,7 +18,7 @@ const (
 	ServiceName = "touchledger"
 	// Version is the version of this request/reply protocol (semantic
 	// versioning; a change of the major number breaks old clients).
-	Version = "1.0.0"
+	Version = "1.1.0"
 	// DefaultPrefix is the default subject prefix.
 	DefaultPrefix = "tl"
 	// DefaultPartitions is the default number of partitions.
@@ -28,6 +29,7 @@ const (
 const (
 	CodeBadRequest = "400" // the request does not decode or names an unknown family or resolution
 	CodeTooLarge   = "413" // the reply would exceed the server's max_payload
+	CodeNoData     = "503" // ask: the worker has committed no events yet
 	CodeInternal   = "500" // the store could not be read
 )
 
@@ -110,6 +112,26 @@ type LatestReply struct {
 	LatestNanos int64        `json:"latest_unix_nano,omitempty"`
 	Latest      string       `json:"latest,omitempty"` // the same, RFC 3339
 	Resolutions []Resolution `json:"resolutions"`
+	// Params is the query-relevant part of the worker's effective
+	// configuration (goal and funnel steps, alert settings, model limits):
+	// query --nats answers with it unless given a configuration file.
+	// Absent from workers older than protocol 1.1.
+	Params *query.Params `json:"params,omitempty"`
+}
+
+// AskSubject is the subject of the ask endpoint of the workers owning
+// partitions first..last: prefix + ".svc.<first>-<last>.ask".
+func AskSubject(prefix string, first, last int) string {
+	return prefix + ".svc." + RangeToken(first, last) + ".ask"
+}
+
+// AskRequest is the JSON request of the ask endpoint: a question's kind
+// and its parameters as text, exactly as the query command's flags (without
+// "--") or the HTTP API's parameters take them, e.g.
+// {"kind": "credit", "params": {"model": "linear", "last": "7d"}}.
+type AskRequest struct {
+	Kind   string            `json:"kind"`
+	Params map[string]string `json:"params,omitempty"`
 }
 
 // Piece is one run of buckets in a sum request.

@@ -153,10 +153,10 @@ func newCluster(t testing.TB) *cluster {
 	res := c.full.Resolutions()
 	var err error
 	// Each worker has its own connection, as separate processes would.
-	if c.svcLo, err = Register(connect(t, c.srv), "tl", 0, 7, c.lo, res); err != nil {
+	if c.svcLo, err = Register(connect(t, c.srv), "tl", 0, 7, c.lo, res, query.ParamsFrom(cfg)); err != nil {
 		t.Fatal(err)
 	}
-	if c.svcHi, err = Register(connect(t, c.srv), "tl", 8, 15, c.hi, res); err != nil {
+	if c.svcHi, err = Register(connect(t, c.srv), "tl", 8, 15, c.hi, res, query.ParamsFrom(cfg)); err != nil {
 		t.Fatal(err)
 	}
 	t.Cleanup(func() { c.svcLo.Stop(); c.svcHi.Stop() })
@@ -169,7 +169,7 @@ func (c *cluster) remoteQuerier(t testing.TB, timeout time.Duration) (*query.Que
 	if err != nil {
 		t.Fatal(err)
 	}
-	q, err := query.NewQuerierFrom(src, c.full.Resolutions(), pipeline.QueryParams(c.cfg))
+	q, err := query.NewQuerierFrom(src, c.full.Resolutions(), query.ParamsFrom(c.cfg))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -179,7 +179,7 @@ func (c *cluster) remoteQuerier(t testing.TB, timeout time.Duration) (*query.Que
 
 func localQuerier(t testing.TB, st *state.Store, cfg config.Config) *query.Querier {
 	t.Helper()
-	q, err := query.NewQuerier(st, pipeline.QueryParams(cfg))
+	q, err := query.NewQuerier(st, query.ParamsFrom(cfg))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -231,11 +231,8 @@ func allAnswers(t *testing.T, q *query.Querier) map[string]string {
 	put("funnel", f, err)
 	al, err := q.Alerts(query.Span{Last: 3 * 24 * time.Hour}, true)
 	put("alerts", al, err)
-	s, p, err := q.Status(week)
-	put("status", struct {
-		S query.Summary
-		P query.Plan
-	}{s, p}, err)
+	s, err := q.Status(week)
+	put("status", s, err)
 	return out
 }
 
@@ -330,7 +327,7 @@ func TestMergedAnswersEqualOneStore(t *testing.T) {
 	}
 	// The halves are not trivial: each holds conversions.
 	for _, st := range []*state.Store{c.lo, c.hi} {
-		s, _, err := localQuerier(t, st, c.cfg).Status(query.Span{Last: 7 * 24 * time.Hour})
+		s, err := localQuerier(t, st, c.cfg).Status(query.Span{Last: 7 * 24 * time.Hour})
 		if err != nil || s.Conversions == 0 {
 			t.Fatalf("a half holds %d conversions (%v)", s.Conversions, err)
 		}
@@ -399,7 +396,7 @@ func TestDiscoveryErrors(t *testing.T) {
 		{"nobody", nil, Options{Timeout: 5 * time.Second}, "no touchledger worker answered on tl.svc.latest"},
 		{"overlap", []LatestReply{{First: 0, Last: 7, Resolutions: wire}, {First: 4, Last: 11, Resolutions: wire}}, Options{Timeout: 300 * time.Millisecond}, "overlapping partitions"},
 		{"beyond", []LatestReply{{First: 8, Last: 31, Resolutions: wire}}, Options{Timeout: 300 * time.Millisecond}, "there are 16 partitions"},
-		{"version", []LatestReply{{Version: "2.0.0", First: 0, Last: 15, Resolutions: wire}}, Options{Timeout: 300 * time.Millisecond}, `speaks protocol "2.0.0", this query "1.0.0"`},
+		{"version", []LatestReply{{Version: "2.0.0", First: 0, Last: 15, Resolutions: wire}}, Options{Timeout: 300 * time.Millisecond}, `speaks protocol "2.0.0", this query "1.1.0"`},
 		{"resolutions", []LatestReply{{First: 0, Last: 15, Resolutions: wire[:1]}}, Options{Timeout: 300 * time.Millisecond, Resolutions: res}, "keeps buckets 5m=300s/1209600s"},
 	}
 	for _, tc := range cases {
@@ -461,7 +458,7 @@ func TestServiceErrors(t *testing.T) {
 	cfg := config.Default()
 	s := startNATS(t, 4096)
 	st := replayStore(t, cfg, demoEvents(t))
-	svc, err := Register(connect(t, s), "tl", 0, 15, st, st.Resolutions())
+	svc, err := Register(connect(t, s), "tl", 0, 15, st, st.Resolutions(), query.ParamsFrom(config.Default()))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -506,7 +503,7 @@ func TestServiceErrors(t *testing.T) {
 		subjects = append(subjects, e.Subject)
 	}
 	slices.Sort(subjects)
-	want := []string{"tl.svc.0-15.buckets", "tl.svc.0-15.sum", "tl.svc.latest"}
+	want := []string{"tl.svc.0-15.ask", "tl.svc.0-15.buckets", "tl.svc.0-15.sum", "tl.svc.latest"}
 	if info.Name != ServiceName || info.Version != Version || !slices.Equal(subjects, want) || info.Metadata["partitions"] != "0-15" {
 		t.Errorf("info %+v, want %s %s with endpoints %v", info, ServiceName, Version, want)
 	}
@@ -533,7 +530,7 @@ func TestRegisterChecks(t *testing.T) {
 		{"no resolutions", "tl", 0, 7, nil, "no resolutions"},
 	}
 	for _, tc := range cases {
-		_, err := Register(nc, tc.prefix, tc.first, tc.last, st, tc.res)
+		_, err := Register(nc, tc.prefix, tc.first, tc.last, st, tc.res, query.ParamsFrom(config.Default()))
 		if err == nil || !strings.Contains(err.Error(), tc.want) {
 			t.Errorf("%s: error %v, want %q", tc.name, err, tc.want)
 		}
@@ -574,7 +571,7 @@ func BenchmarkCreditQuery(b *testing.B) {
 		if err != nil {
 			b.Fatal(err)
 		}
-		q, err := query.NewQuerierFrom(src, c.full.Resolutions(), pipeline.QueryParams(c.cfg))
+		q, err := query.NewQuerierFrom(src, c.full.Resolutions(), query.ParamsFrom(c.cfg))
 		if err != nil {
 			b.Fatal(err)
 		}
@@ -587,7 +584,7 @@ func BenchmarkCreditQuery(b *testing.B) {
 		}
 	})
 	b.Run("local", func(b *testing.B) {
-		q, err := query.NewQuerier(c.full, pipeline.QueryParams(c.cfg))
+		q, err := query.NewQuerier(c.full, query.ParamsFrom(c.cfg))
 		if err != nil {
 			b.Fatal(err)
 		}

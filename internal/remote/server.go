@@ -22,21 +22,25 @@ type worker struct {
 	first, last int
 	st          *state.Store
 	res         []state.Resolution
+	params      query.Params
 	id          string
 	rangeHeader micro.Headers
 }
 
 // Register starts the "touchledger" micro service on nc for a worker that
 // owns partitions first..last and keeps its counters in st at resolutions
-// res. Endpoints (see docs/remote.md):
+// res, answering with the query-time settings params (its effective
+// configuration, which the latest endpoint announces). Endpoints (see
+// docs/remote.md):
 //
 //	<prefix>.svc.latest                  every worker answers (no queue group)
 //	<prefix>.svc.<first>-<last>.sum      queue group: one worker of the range answers
 //	<prefix>.svc.<first>-<last>.buckets
+//	<prefix>.svc.<first>-<last>.ask      a question (AskRequest) answered from the range's own data
 //
 // Each request reads its own snapshot of st, so one answer is consistent.
 // Stop the service before closing st.
-func Register(nc *nats.Conn, prefix string, first, last int, st *state.Store, res []state.Resolution) (micro.Service, error) {
+func Register(nc *nats.Conn, prefix string, first, last int, st *state.Store, res []state.Resolution, params query.Params) (micro.Service, error) {
 	if nc == nil || st == nil {
 		return nil, errors.New("remote: register needs a connection and a store")
 	}
@@ -50,7 +54,7 @@ func Register(nc *nats.Conn, prefix string, first, last int, st *state.Store, re
 		return nil, errors.New("remote: no resolutions")
 	}
 	rng := RangeToken(first, last)
-	w := &worker{nc: nc, first: first, last: last, st: st, res: slices.Clone(res),
+	w := &worker{nc: nc, first: first, last: last, st: st, res: slices.Clone(res), params: params,
 		rangeHeader: micro.Headers{HeaderPartitions: {rng}}}
 	svc, err := micro.AddService(nc, micro.Config{
 		Name:        ServiceName,
@@ -68,6 +72,7 @@ func Register(nc *nats.Conn, prefix string, first, last int, st *state.Store, re
 		g.AddEndpoint("latest", micro.HandlerFunc(w.latest), micro.WithEndpointQueueGroupDisabled(), micro.WithEndpointMetadata(meta)),
 		g.AddEndpoint("sum", micro.HandlerFunc(w.sum), micro.WithEndpointSubject(rng+".sum"), micro.WithEndpointMetadata(meta)),
 		g.AddEndpoint("buckets", micro.HandlerFunc(w.buckets), micro.WithEndpointSubject(rng+".buckets"), micro.WithEndpointMetadata(meta)),
+		g.AddEndpoint("ask", micro.HandlerFunc(w.ask), micro.WithEndpointSubject(rng+".ask"), micro.WithEndpointMetadata(meta)),
 	)
 	if err != nil {
 		_ = svc.Stop()
@@ -109,7 +114,7 @@ func (w *worker) latest(req micro.Request) {
 		w.fail(req, CodeInternal, err)
 		return
 	}
-	r := LatestReply{Version: Version, ID: w.id, First: w.first, Last: w.last, HasData: ok, Resolutions: wireResolutions(w.res)}
+	r := LatestReply{Version: Version, ID: w.id, First: w.first, Last: w.last, HasData: ok, Resolutions: wireResolutions(w.res), Params: &w.params}
 	if ok {
 		r.LatestNanos = t.UnixNano()
 		r.Latest = t.UTC().Format(time.RFC3339Nano)
@@ -171,4 +176,51 @@ func (w *worker) buckets(req micro.Request) {
 	}
 	slices.Sort(starts)
 	w.respond(req, AppendBuckets(nil, starts, m))
+}
+
+// ask answers one question from this worker's store: the request's
+// parameters go through query.ParseRequest, as on every surface, so a
+// question is refused here exactly when the CLI or HTTP refuse it, with the
+// same message (error code 400). The reply is the answer's JSON.
+func (w *worker) ask(req micro.Request) {
+	defer w.guard(req)
+	var r AskRequest
+	if err := json.Unmarshal(req.Data(), &r); err != nil {
+		w.fail(req, CodeBadRequest, fmt.Errorf("ask request: %w", err))
+		return
+	}
+	qr, err := query.ParseRequest(query.Kind(r.Kind), r.Params)
+	if err != nil {
+		w.fail(req, CodeBadRequest, err)
+		return
+	}
+	if qr.Kind == query.KindScorecard {
+		w.fail(req, CodeBadRequest, errors.New("kind: scorecard reads a local truth file: ask it with the query command"))
+		return
+	}
+	q, err := query.NewQuerierFrom(query.NewLocalSource(w.st), w.res, w.params)
+	if errors.Is(err, query.ErrNoData) {
+		w.fail(req, CodeNoData, err)
+		return
+	}
+	if err != nil {
+		w.fail(req, CodeInternal, err)
+		return
+	}
+	defer q.Close()
+	a, err := q.Answer(qr)
+	switch {
+	case query.IsParamError(err):
+		w.fail(req, CodeBadRequest, err)
+		return
+	case err != nil:
+		w.fail(req, CodeInternal, err)
+		return
+	}
+	body, err := json.Marshal(a)
+	if err != nil {
+		w.fail(req, CodeInternal, err)
+		return
+	}
+	w.respond(req, body)
 }

@@ -5,6 +5,8 @@ import (
 	"errors"
 	"fmt"
 	"log/slog"
+	"net/url"
+	"strings"
 	"time"
 
 	"github.com/nats-io/nats.go"
@@ -39,6 +41,9 @@ func (o ConnectOptions) Validate() error {
 	}
 	if n > 1 {
 		return errors.New("nats: give one of user/password, token, nkey seed file or credentials file")
+	}
+	if (o.User == "") != (o.Password == "") {
+		return errors.New("nats: a user and a password go together")
 	}
 	if (o.CertFile == "") != (o.KeyFile == "") {
 		return errors.New("nats: a client certificate needs both the certificate and the key file")
@@ -99,7 +104,7 @@ func Connect(o ConnectOptions, log *slog.Logger) (*nats.Conn, error) {
 	}
 	nc, err := nats.Connect(o.URL, opts...)
 	if err != nil {
-		return nil, fmt.Errorf("nats: connect %s: %w", o.URL, err)
+		return nil, fmt.Errorf("nats: connect %s: %w", RedactURLs(o.URL), err)
 	}
 	return nc, nil
 }
@@ -136,4 +141,16 @@ func EnsureStream(ctx context.Context, js jetstream.JetStream, cfg Config) error
 		}
 	}
 	return nil
+}
+
+// RedactURLs hides the passwords of comma-separated server URLs, for
+// messages and logs.
+func RedactURLs(urls string) string {
+	parts := strings.Split(urls, ",")
+	for i, p := range parts {
+		if u, err := url.Parse(strings.TrimSpace(p)); err == nil && u.User != nil {
+			parts[i] = u.Redacted()
+		}
+	}
+	return strings.Join(parts, ",")
 }

@@ -224,7 +224,7 @@ func answersJSON(t testing.TB, dir string, from, to time.Time) string {
 // allows readers beside the writer).
 func storeAnswers(t testing.TB, st *state.Store, from, to time.Time) string {
 	t.Helper()
-	q, err := query.NewQuerier(st, pipeline.QueryParams(config.Default()))
+	q, err := query.NewQuerier(st, query.ParamsFrom(config.Default()))
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -79,7 +79,7 @@ func newFixture(t *testing.T, opts web.Options) *fixture {
 }
 
 func (f *fixture) open() (*query.Querier, error) {
-	return query.NewQuerier(f.store, pipeline.QueryParams(f.cfg))
+	return query.NewQuerier(f.store, query.ParamsFrom(f.cfg))
 }
 
 func (f *fixture) querier(t *testing.T) *query.Querier {

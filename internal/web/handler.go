@@ -16,8 +16,6 @@ import (
 	"github.com/prometheus/client_golang/prometheus"
 	"github.com/prometheus/client_golang/prometheus/promhttp"
 
-	"github.com/touchledger/touchledger/internal/config"
-	"github.com/touchledger/touchledger/internal/credit"
 	"github.com/touchledger/touchledger/internal/pipeline"
 	"github.com/touchledger/touchledger/internal/query"
 )
@@ -36,9 +34,6 @@ type Options struct {
 	// Token, when set, is required as "Authorization: Bearer <token>" on
 	// every endpoint except /healthz.
 	Token string
-	// MarkovMaxOrder is the configuration's markov_max_order, the largest
-	// order parameter accepted. Default: the configuration default.
-	MarkovMaxOrder int
 	// MaxInFlight bounds concurrent API answers (each holds a snapshot and
 	// may run a data-driven model); further requests wait. Default 4.
 	MaxInFlight int
@@ -54,9 +49,6 @@ type Options struct {
 // NewHandler serves /healthz, /readyz, /metrics and the JSON/CSV API under
 // /api/ (see the package documentation).
 func NewHandler(opts Options) http.Handler {
-	if opts.MarkovMaxOrder <= 0 {
-		opts.MarkovMaxOrder = config.Default().MarkovMaxOrder
-	}
 	if opts.MaxInFlight <= 0 {
 		opts.MaxInFlight = 4
 	}
@@ -87,8 +79,8 @@ func NewHandler(opts Options) http.Handler {
 	}
 	if opts.OpenQuerier != nil {
 		a := &api{opts: opts, slots: make(chan struct{}, opts.MaxInFlight)}
-		for name, e := range a.endpoints() {
-			mux.Handle("GET /api/"+name, a.handle(e))
+		for _, k := range APIKinds {
+			mux.Handle("GET /api/"+string(k), a.handle(k))
 		}
 		mux.HandleFunc("GET /api/", func(w http.ResponseWriter, r *http.Request) {
 			writeError(w, http.StatusNotFound, fmt.Errorf("no such endpoint %s (see /api/credit, shift, transitions, paths, funnel, alerts, status)", r.URL.Path))
@@ -148,6 +140,11 @@ type promLogger struct{ log *slog.Logger }
 
 func (p promLogger) Println(v ...any) { p.log.Error("metrics", "error", fmt.Sprint(v...)) }
 
+// APIKinds are the questions served under /api/ (every kind but the
+// scorecard, which reads a truth file named by the asker).
+var APIKinds = []query.Kind{query.KindCredit, query.KindShift, query.KindTransitions, query.KindPaths,
+	query.KindFunnel, query.KindAlerts, query.KindStatus}
+
 // writeError answers {"error": "..."} with the status.
 func writeError(w http.ResponseWriter, status int, err error) {
 	w.Header().Set("Content-Type", contentJSON)
@@ -158,34 +155,23 @@ func writeError(w http.ResponseWriter, status int, err error) {
 	}{err.Error()})
 }
 
-// answer computes an answer from a querier and writes it in a format.
-type answer func(q *query.Querier, w io.Writer, f query.Format) error
-
-// endpoint is one API path: the parameters it takes and how it reads them
-// into an answer (errors there are bad requests).
-type endpoint struct {
-	params []string
-	parse  func(p *params) (answer, error)
-}
-
 type api struct {
 	opts  Options
 	slots chan struct{}
 }
 
-func (a *api) handle(e endpoint) http.Handler {
+// handle answers one kind: the URL's parameters (format aside) become a
+// query.Request through query.ParseRequest, the parser every surface uses,
+// so a request is refused here exactly when `query` refuses it, with the
+// same message. Parameter errors answer 400, no data 503, anything else 500.
+func (a *api) handle(k query.Kind) http.Handler {
 	return http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
 		f, err := responseFormat(r)
 		if err != nil {
 			writeError(w, http.StatusBadRequest, err)
 			return
 		}
-		p, err := newParams(r.URL.Query(), e.params)
-		if err != nil {
-			writeError(w, http.StatusBadRequest, err)
-			return
-		}
-		run, err := e.parse(p)
+		req, err := requestOf(k, r.URL.Query())
 		if err != nil {
 			writeError(w, http.StatusBadRequest, err)
 			return
@@ -198,13 +184,12 @@ func (a *api) handle(e endpoint) http.Handler {
 			return
 		}
 		var buf bytes.Buffer
-		if err := a.run(run, &buf, f); err != nil {
+		if err := a.answer(req, &buf, f); err != nil {
 			status := http.StatusInternalServerError
-			var bad badRequest
 			switch {
 			case errors.Is(err, query.ErrNoData):
 				status = http.StatusServiceUnavailable
-			case errors.Is(err, query.ErrEmptyWindow), errors.As(err, &bad):
+			case query.IsParamError(err):
 				status = http.StatusBadRequest
 			default:
 				a.opts.Log.Error("api answer", "path", r.URL.Path, "query", r.URL.RawQuery, "error", err)
@@ -223,209 +208,17 @@ func (a *api) handle(e endpoint) http.Handler {
 	})
 }
 
-func (a *api) run(fn answer, w io.Writer, f query.Format) error {
+func (a *api) answer(req query.Request, w io.Writer, f query.Format) error {
 	q, err := a.opts.OpenQuerier()
 	if err != nil {
 		return fmt.Errorf("open data: %w", err)
 	}
 	defer q.Close()
-	return fn(q, w, f)
-}
-
-// parseModel checks a model name (required).
-func parseModel(p *params) (string, error) {
-	m := p.str("model")
-	if m == "" {
-		return "", badf("model is required (%s)", strings.Join(modelNames(), ", "))
+	ans, err := q.Answer(req)
+	if err != nil {
+		return err
 	}
-	if !query.IsDataDriven(m) {
-		if _, err := credit.ParseModel(m); err != nil {
-			return "", badRequest{fmt.Errorf("model: %w", err)}
-		}
-	}
-	return m, nil
-}
-
-func modelNames() []string {
-	var names []string
-	for _, m := range credit.RuleModels {
-		names = append(names, m.String())
-	}
-	return append(names, query.ModelMarkov, query.ModelShapley)
-}
-
-func parseLevel(p *params) (string, error) {
-	switch l := p.str("level"); l {
-	case "channel", "action":
-		return l, nil
-	case "":
-		return "", badf("level is required: channel or action")
-	default:
-		return "", badf("unknown level %q: use channel or action", l)
-	}
-}
-
-// endpoints lists the API. Defaults follow `query`: by=channel, order=1,
-// days=14, top=10, no window = the last 30 days.
-func (a *api) endpoints() map[string]endpoint {
-	maxOrder := a.opts.MarkovMaxOrder
-	return map[string]endpoint{
-		"credit": {
-			params: append([]string{"model", "by", "order"}, windowParams...),
-			parse: func(p *params) (answer, error) {
-				model, err := parseModel(p)
-				if err != nil {
-					return nil, err
-				}
-				by, err := query.ParseBy(p.str("by"))
-				if err != nil {
-					return nil, badRequest{fmt.Errorf("by: %w", err)}
-				}
-				if query.IsDataDriven(model) && by != query.ByChannel {
-					return nil, badf("the %s model credits channels only (no by=%s)", model, by)
-				}
-				order, err := p.intIn("order", 1, 1, maxOrder)
-				if err != nil {
-					return nil, err
-				}
-				span, err := p.span()
-				if err != nil {
-					return nil, err
-				}
-				return func(q *query.Querier, w io.Writer, f query.Format) error {
-					ans, err := q.Credit(model, by, order, span)
-					if err != nil {
-						return err
-					}
-					return query.WriteCredit(w, ans, f, false)
-				}, nil
-			},
-		},
-		"shift": {
-			params: []string{"model", "days", "order"},
-			parse: func(p *params) (answer, error) {
-				model, err := parseModel(p)
-				if err != nil {
-					return nil, err
-				}
-				days, err := p.intIn("days", 14, 1, 3660)
-				if err != nil {
-					return nil, err
-				}
-				order, err := p.intIn("order", 1, 1, maxOrder)
-				if err != nil {
-					return nil, err
-				}
-				return func(q *query.Querier, w io.Writer, f query.Format) error {
-					ans, err := q.Shift(model, order, days)
-					if err != nil {
-						return err
-					}
-					return query.WriteShift(w, ans, f, false)
-				}, nil
-			},
-		},
-		"transitions": {
-			params: append([]string{"level", "order"}, windowParams...),
-			parse: func(p *params) (answer, error) {
-				level, err := parseLevel(p)
-				if err != nil {
-					return nil, err
-				}
-				order, err := p.intIn("order", 1, 1, maxOrder)
-				if err != nil {
-					return nil, err
-				}
-				span, err := p.span()
-				if err != nil {
-					return nil, err
-				}
-				return func(q *query.Querier, w io.Writer, f query.Format) error {
-					ans, err := q.Transitions(level, order, span)
-					if err != nil {
-						return err
-					}
-					return query.WriteTransitions(w, ans, f)
-				}, nil
-			},
-		},
-		"paths": {
-			params: append([]string{"level", "top"}, windowParams...),
-			parse: func(p *params) (answer, error) {
-				level, err := parseLevel(p)
-				if err != nil {
-					return nil, err
-				}
-				top, err := p.intIn("top", 10, 1, 1_000_000)
-				if err != nil {
-					return nil, err
-				}
-				span, err := p.span()
-				if err != nil {
-					return nil, err
-				}
-				return func(q *query.Querier, w io.Writer, f query.Format) error {
-					ans, err := q.Paths(level, top, span)
-					if err != nil {
-						return err
-					}
-					return query.WritePaths(w, ans, f)
-				}, nil
-			},
-		},
-		"funnel": {
-			params: windowParams,
-			parse: func(p *params) (answer, error) {
-				span, err := p.span()
-				if err != nil {
-					return nil, err
-				}
-				return func(q *query.Querier, w io.Writer, f query.Format) error {
-					ans, err := q.Funnel(span)
-					if err != nil {
-						return err
-					}
-					return query.WriteFunnel(w, ans, f)
-				}, nil
-			},
-		},
-		"alerts": {
-			params: append([]string{"points"}, windowParams...),
-			parse: func(p *params) (answer, error) {
-				points, err := p.flag("points")
-				if err != nil {
-					return nil, err
-				}
-				span, err := p.span()
-				if err != nil {
-					return nil, err
-				}
-				return func(q *query.Querier, w io.Writer, f query.Format) error {
-					ans, err := q.Alerts(span, points)
-					if err != nil {
-						return err
-					}
-					return query.WriteAlerts(w, ans, f)
-				}, nil
-			},
-		},
-		"status": {
-			params: windowParams,
-			parse: func(p *params) (answer, error) {
-				span, err := p.span()
-				if err != nil {
-					return nil, err
-				}
-				return func(q *query.Querier, w io.Writer, f query.Format) error {
-					s, plan, err := q.Status(span)
-					if err != nil {
-						return err
-					}
-					return query.WriteStatus(w, s, plan, f)
-				}, nil
-			},
-		},
-	}
+	return query.Render(w, ans, f, query.RenderOptions{})
 }
 
 // StatusSource reports a processor's committed progress

@@ -30,7 +30,7 @@ import (
 )
 
 func mustTime(s string) time.Time {
-	t, err := web.ParseTime(s)
+	t, err := query.ParseTime(s)
 	if err != nil {
 		panic(err)
 	}
@@ -147,18 +147,18 @@ var apiCases = []struct {
 		return query.WriteAlerts(w, a, f)
 	}},
 	{"/api/status", false, func(q *query.Querier, w io.Writer, f query.Format) error {
-		s, p, err := q.Status(query.Span{})
+		s, err := q.Status(query.Span{})
 		if err != nil {
 			return err
 		}
-		return query.WriteStatus(w, s, p, f)
+		return query.WriteStatus(w, s, f)
 	}},
 	{"/api/status?last=2d", false, func(q *query.Querier, w io.Writer, f query.Format) error {
-		s, p, err := q.Status(query.Span{Last: 48 * time.Hour})
+		s, err := q.Status(query.Span{Last: 48 * time.Hour})
 		if err != nil {
 			return err
 		}
-		return query.WriteStatus(w, s, p, f)
+		return query.WriteStatus(w, s, f)
 	}},
 }
 
@@ -296,32 +296,35 @@ func sameCSVShape(got, want []byte) bool {
 func TestAPIBadParameters(t *testing.T) {
 	f := newFixture(t, web.Options{})
 	cases := []struct{ path, wantInError string }{
-		{"/api/credit", "model is required"},
-		{"/api/credit?model=hunch", "unknown attribution model"},
+		{"/api/credit", "model: is required"},
+		{"/api/credit?model=hunch", `model: unknown model "hunch"`},
 		{"/api/credit?model=linear&by=region", "unknown grouping"},
 		{"/api/credit?model=shapley&by=campaign", "channels only"},
-		{"/api/credit?model=markov&order=0", "order must be 1 to 3"},
-		{"/api/credit?model=markov&order=9", "order must be 1 to 3"},
-		{"/api/credit?model=markov&order=two", "not an integer"},
+		{"/api/credit?model=markov&order=0", "order: must be at least 1"},
+		{"/api/credit?model=markov&order=9", "order: must be 1 to 4"},
+		{"/api/credit?model=markov&order=4", "order: must be 1 to 3 (markov_max_order)"},
+		{"/api/credit?model=linear&order=2", "order: applies to the markov model only"},
+		{"/api/credit?model=linear&from=0001-01-01&to=2026-10-01", "from: 0001-01-01T00:00:00Z is before 1970"},
+		{"/api/credit?model=markov&order=two", "not a whole number"},
 		{"/api/credit?model=linear&last=abc", "last"},
-		{"/api/credit?model=linear&last=0s", "last must be positive"},
+		{"/api/credit?model=linear&last=0s", "last: must be positive"},
 		{"/api/credit?model=linear&last=-1d", "sign"},
 		{"/api/credit?model=linear&last=7d&from=2026-10-01", "either last or from/to"},
-		{"/api/credit?model=linear&to=2026-10-01", "to needs from"},
+		{"/api/credit?model=linear&to=2026-10-01", "to: needs from"},
 		{"/api/credit?model=linear&from=2026-10-05&to=2026-10-01", "window is empty"},
-		{"/api/credit?model=linear&from=2099-01-01", "window is empty"},
+		{"/api/credit?model=linear&from=2099-01-01", "from: 2099-01-01T00:00:00Z is after the latest event"},
 		{"/api/credit?model=linear&from=yesterday", "neither an RFC 3339 time"},
-		{"/api/credit?model=linear&modle=linear", `unknown parameter "modle"`},
+		{"/api/credit?model=linear&modle=linear", "modle: unknown parameter for credit"},
 		{"/api/credit?model=linear&model=markov", "given 2 times"},
 		{"/api/credit?model=linear&format=xml", "unknown format"},
 		{"/api/credit?model=linear&format=table", "unknown format"},
-		{"/api/shift?model=linear&days=0", "days must be 1 to 3660"},
-		{"/api/shift?model=linear&last=7d", `unknown parameter "last"`},
-		{"/api/transitions", "level is required"},
+		{"/api/shift?model=linear&days=0", "days: must be at least 1"},
+		{"/api/shift?model=linear&last=7d", "last: unknown parameter for shift"},
+		{"/api/transitions", "level: is required"},
 		{"/api/transitions?level=page", "unknown level"},
-		{"/api/paths?level=action&top=0", "top must be"},
+		{"/api/paths?level=action&top=0", "top: must be at least 1"},
 		{"/api/alerts?points=maybe", "not a boolean"},
-		{"/api/funnel?level=action", `unknown parameter "level"`},
+		{"/api/funnel?level=action", "level: unknown parameter for funnel"},
 		{"/api/status?last=1x", "last"},
 	}
 	for _, c := range cases {
@@ -634,39 +637,6 @@ func TestCheckListen(t *testing.T) {
 }
 
 var errAddr = errors.New("malformed address")
-
-func TestParseSpan(t *testing.T) {
-	day := 24 * time.Hour
-	cases := []struct {
-		from, to, last string
-		want           query.Span
-		ok             bool
-	}{
-		{"", "", "", query.Span{}, true},
-		{"", "", "7d", query.Span{Last: 7 * day}, true},
-		{"", "", "1d12h", query.Span{Last: 36 * time.Hour}, true},
-		{"2026-10-01", "", "", query.Span{From: time.Date(2026, 10, 1, 0, 0, 0, 0, time.UTC)}, true},
-		{"2026-10-01T02:00:00+02:00", "2026-10-02", "", query.Span{From: time.Date(2026, 10, 1, 0, 0, 0, 0, time.UTC), To: time.Date(2026, 10, 2, 0, 0, 0, 0, time.UTC)}, true},
-		{"2026-10-01T00:00:00.5Z", "2026-10-01T00:00:01Z", "", query.Span{From: time.Date(2026, 10, 1, 0, 0, 0, 5e8, time.UTC), To: time.Date(2026, 10, 1, 0, 0, 1, 0, time.UTC)}, true},
-		{"", "", "0s", query.Span{}, false},
-		{"", "", "7", query.Span{}, false},
-		{"2026-10-01", "", "7d", query.Span{}, false},
-		{"", "2026-10-01", "", query.Span{}, false},
-		{"2026-10-02", "2026-10-02", "", query.Span{}, false},
-		{"2026-13-01", "", "", query.Span{}, false},
-		{"1 Oct 2026", "", "", query.Span{}, false},
-	}
-	for _, c := range cases {
-		got, err := web.ParseSpan(c.from, c.to, c.last)
-		if (err == nil) != c.ok {
-			t.Errorf("ParseSpan(%q, %q, %q) error %v, want ok=%v", c.from, c.to, c.last, err, c.ok)
-			continue
-		}
-		if c.ok && (!got.From.Equal(c.want.From) || !got.To.Equal(c.want.To) || got.Last != c.want.Last) {
-			t.Errorf("ParseSpan(%q, %q, %q) = %+v, want %+v", c.from, c.to, c.last, got, c.want)
-		}
-	}
-}
 
 func TestFormatNegotiation(t *testing.T) {
 	f := newFixture(t, web.Options{})

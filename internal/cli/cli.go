@@ -1,0 +1,121 @@
+package cli
+
+import (
+	"flag"
+	"fmt"
+	"os"
+	"runtime/debug"
+	"time"
+
+	"github.com/touchledger/touchledger/internal/config"
+	"github.com/touchledger/touchledger/internal/stream"
+)
+
+// Exit codes of every command.
+const (
+	ExitOK      = 0 // done
+	ExitFailure = 1 // the work failed: data, I/O, network
+	ExitUsage   = 2 // called wrongly: unknown or inapplicable flag, bad value
+)
+
+// Duration is a flag.Value reading config.ParseDuration's syntax, the one
+// every duration takes (flags, configuration, HTTP parameters): 30m, 12h,
+// 7d, 1d12h.
+type Duration struct{ D *time.Duration }
+
+// DurationVar defines a duration flag with that syntax.
+func DurationVar(fs *flag.FlagSet, p *time.Duration, name string, value time.Duration, usage string) {
+	*p = value
+	fs.Var(Duration{p}, name, usage)
+}
+
+func (d Duration) String() string {
+	if d.D == nil {
+		return ""
+	}
+	return config.Duration(*d.D).String()
+}
+
+// Set implements flag.Value.
+func (d Duration) Set(s string) error {
+	v, err := config.ParseDuration(s)
+	if err != nil {
+		return err
+	}
+	*d.D = v
+	return nil
+}
+
+// Version is the version line of a command: its module version and VCS
+// revision from the build information, e.g. "query v0.3.1 (rev 1a2b3c4,
+// modified)"; "(devel)" when built from a working tree without a version.
+func Version(cmd string) string {
+	info, ok := debug.ReadBuildInfo()
+	if !ok {
+		return cmd + " (no build information)"
+	}
+	v := info.Main.Version
+	if v == "" {
+		v = "(devel)"
+	}
+	var rev, modified string
+	for _, s := range info.Settings {
+		switch s.Key {
+		case "vcs.revision":
+			rev = s.Value
+		case "vcs.modified":
+			if s.Value == "true" {
+				modified = ", modified"
+			}
+		}
+	}
+	if len(rev) > 12 {
+		rev = rev[:12]
+	}
+	if rev == "" {
+		return fmt.Sprintf("%s %s %s", cmd, v, info.GoVersion)
+	}
+	return fmt.Sprintf("%s %s (rev %s%s) %s", cmd, v, rev, modified, info.GoVersion)
+}
+
+// NATS holds the flags for reaching an existing NATS server or cluster;
+// query and ingest register the same set.
+type NATS struct {
+	url, user, password, token, nkey, creds, ca, cert, key string
+}
+
+// AddNATS registers --nats (default: $NATS_URL, else defaultURL) and the
+// authentication and TLS flags on fs.
+func AddNATS(fs *flag.FlagSet, defaultURL, urlHelp string) *NATS {
+	f := &NATS{}
+	if env := os.Getenv("NATS_URL"); env != "" {
+		defaultURL = env
+	}
+	fs.StringVar(&f.url, "nats", defaultURL, urlHelp+" (default $NATS_URL)")
+	fs.StringVar(&f.user, "nats-user", "", "NATS `user` (with --nats-password)")
+	fs.StringVar(&f.password, "nats-password", "", "NATS `password` (default $TL_NATS_PASSWORD)")
+	fs.StringVar(&f.token, "nats-token", "", "NATS `token` (default $TL_NATS_TOKEN)")
+	fs.StringVar(&f.nkey, "nats-nkey", "", "NKey seed `file`")
+	fs.StringVar(&f.creds, "nats-creds", "", "credentials `file` (user JWT and seed)")
+	fs.StringVar(&f.ca, "nats-ca", "", "TLS: CA certificates `file` to trust")
+	fs.StringVar(&f.cert, "nats-cert", "", "TLS: client certificate `file` (with --nats-key)")
+	fs.StringVar(&f.key, "nats-key", "", "TLS: client key `file`")
+	return f
+}
+
+// URL returns the server URLs given (or from $NATS_URL); empty: none.
+func (f *NATS) URL() string { return f.url }
+
+// Options returns the connection options; secrets not given as flags come
+// from the environment (so they need not appear in the process list).
+func (f *NATS) Options(name string) stream.ConnectOptions {
+	pw, tok := f.password, f.token
+	if pw == "" {
+		pw = os.Getenv("TL_NATS_PASSWORD")
+	}
+	if tok == "" {
+		tok = os.Getenv("TL_NATS_TOKEN")
+	}
+	return stream.ConnectOptions{URL: f.url, Name: name, User: f.user, Password: pw, Token: tok,
+		NKeyFile: f.nkey, CredsFile: f.creds, CAFile: f.ca, CertFile: f.cert, KeyFile: f.key}
+}
