@@ -63,7 +63,7 @@ transitions  how journeys move between channels (as the Markov model sees
              them), or how sessions move between actions, with row probabilities
 paths        the most frequent whole session or journey paths, with conversion rates
 funnel       sessions reaching each funnel step in order, and where they drop out
-alerts       cart-abandonment spikes found by an EWMA control chart
+alerts       abandonment spikes after the watched funnel step (EWMA control chart)
 status       what the data directory holds
 scorecard    each model's credit next to a simulated world's true incremental
              conversions (demo --truth FILE), with the distance between them

@@ -22,7 +22,7 @@ func FromConfig(c config.Config) Config {
 			ViewLookback:   c.ViewLookback.D(),
 			JourneyTimeout: c.JourneyTimeout.D(),
 			DedupHorizon:   c.DedupHorizon.D(),
-			Conversions:    c.ConversionActions,
+			Conversions:    c.GoalActions,
 			Credit: credit.Params{
 				HalfLife: c.HalfLife.D(),
 				First:    c.PositionWeights.First,
@@ -34,7 +34,7 @@ func FromConfig(c config.Config) Config {
 			MaxTouches:  100,
 			PathStats:   true,
 			FunnelSteps: c.FunnelSteps,
-			CartStep:    c.CartStep,
+			BasketStep:  c.BasketStep,
 		},
 		Lateness:       c.Lateness.D(),
 		Currency:       c.Currency,
@@ -68,7 +68,7 @@ func QueryParams(c config.Config) query.Params {
 		PathMaxLen:      c.PathMaxLen,
 		ShapleyCap:      c.ShapleyCap,
 		FunnelSteps:     c.FunnelSteps,
-		CartStep:        c.CartStep,
+		BasketStep:      c.BasketStep,
 		AlertInterval:   step,
 		AlertStep:       c.Alert.Step,
 		Alert: alert.Params{

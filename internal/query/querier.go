@@ -270,7 +270,7 @@ func (q *Querier) Funnel(s Span) (FunnelAnswer, error) {
 	return Funnel(q.p.FunnelSteps, p, t), nil
 }
 
-// Alerts answers `query alerts`: the cart-abandonment chart is run from the
+// Alerts answers `query alerts`: the step-abandonment chart is run from the
 // baseline's length before the window (so the baseline is warm) and the
 // alerts that were open at any time in the window are listed. The series
 // comes from the finest resolution whose step divides the interval, so it
