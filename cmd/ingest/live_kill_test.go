@@ -56,7 +56,7 @@ func TestLiveKillExactlyOnce(t *testing.T) {
 	for i, l := range strings.Split(strings.TrimSpace(buf.String()), "\n") {
 		lines = append(lines, l)
 		if i%997 == 0 {
-			lines = append(lines, fmt.Sprintf(`{"id":"junk-%d","user":"j%d","time":"soon","kind":"action","action":"view_item"}`, i, i))
+			lines = append(lines, fmt.Sprintf(`{"id":"junk-%d","user":"j%d","time":"soon","kind":"action","action":"product_view"}`, i, i))
 			junk++
 		}
 	}

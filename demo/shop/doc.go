@@ -12,7 +12,7 @@
 // product brief (DESIGN.md, "Events"): touches carry id, user, time, kind
 // "touch", channel, campaign and interaction ("click"/"view"); actions carry
 // id, user, time, kind "action", action, value (2 decimals: item price, or
-// cart total at checkout and purchase) and currency (EUR). Times are RFC 3339 UTC with milliseconds, inside
+// basket total at checkout and purchase) and currency (EUR). Times are RFC 3339 UTC with milliseconds, inside
 // [Start, Start+Days·24h). Ids are "<user>-<n>", n counting the user's written
 // events, so they are unique and deterministic. The default world writes about
 // 5.2 events per visitor: Visitors = 200 000 gives about 1 M events.
@@ -26,9 +26,9 @@
 //
 // Every visitor has an intent tier, a base chance to buy, and 1 to 8 planned
 // visits (gaps of at least 35 minutes, often days) with a daily and weekly
-// rhythm. Every visit but the last browses the funnel (view_item, add_to_cart,
-// remove_from_cart, rarely checkout). The last visit is the decision: buy
-// (cart, checkout, purchase) or not (browse, sometimes abandon at checkout).
+// rhythm. Every visit but the last browses the funnel (product_view, basket_add,
+// basket_remove, rarely checkout). The last visit is the decision: buy
+// (basket, checkout, purchase) or not (browse, sometimes abandon at checkout).
 // Seven channels place touches on that timeline: some start visits with a
 // click, some show views between visits or before the first one; a visit no
 // touch precedes is direct and writes no touch. From ShiftDay on, search_ads

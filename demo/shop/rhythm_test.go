@@ -61,13 +61,13 @@ func TestWorldHasRhythmSessionsAndJourneys(t *testing.T) {
 			funnel[l.Action]++
 		}
 	}
-	order := []string{ActionViewItem, ActionAddToCart, ActionCheckout, ActionPurchase}
+	order := []string{ActionProductView, ActionBasketAdd, ActionCheckout, ActionOrder}
 	for i := 1; i < len(order); i++ {
 		if funnel[order[i]] == 0 || funnel[order[i]] >= funnel[order[i-1]] {
 			t.Errorf("funnel %v: %s should be fewer than %s and more than 0", funnel, order[i], order[i-1])
 		}
 	}
-	if funnel[ActionRemoveFromCart] == 0 {
-		t.Errorf("funnel %v: no remove_from_cart", funnel)
+	if funnel[ActionBasketRemove] == 0 {
+		t.Errorf("funnel %v: no basket_remove", funnel)
 	}
 }

@@ -169,7 +169,7 @@ func TestGenerateWritesContractLines(t *testing.T) {
 			continue
 		}
 		got.Actions++
-		if l.Action == ActionPurchase {
+		if l.Action == ActionOrder {
 			got.Conversions++
 			cents += int64(math.Round(l.Value * 100))
 		}
@@ -237,7 +237,7 @@ func TestIncidentRaisesCheckoutAbandonment(t *testing.T) {
 			continue
 		}
 		perDay[day].checkouts++
-		if !slices.ContainsFunc(s[i:], func(l line) bool { return l.Action == ActionPurchase }) {
+		if !slices.ContainsFunc(s[i:], func(l line) bool { return l.Action == ActionOrder }) {
 			perDay[day].abandoned++
 		}
 	}

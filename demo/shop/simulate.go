@@ -25,7 +25,7 @@ const (
 type rec struct {
 	t     int64
 	user  int32
-	cents int32  // actions: item price or cart total
+	cents int32  // actions: item price or basket total
 	n     uint16 // the visitor's event number, part of the id
 	camp  uint16 // touches: campaign index
 	kind  uint8
@@ -125,7 +125,7 @@ type visitor struct {
 	tier       int
 	n          uint16
 	recs       []rec
-	cart       []int32
+	basket     []int32
 	visits     int
 	visitStart [maxVisits]int64
 	visitEnd   [maxVisits]int64
@@ -191,9 +191,9 @@ func (v *visitor) nextVisit(r *stream, end int64) int64 {
 
 func (v *visitor) item(r *stream) int32 { return catalogCents[r.pick(v.w.catalogCum[:])] }
 
-func (v *visitor) cartTotal() int32 {
+func (v *visitor) basketTotal() int32 {
 	var sum int32
-	for _, c := range v.cart {
+	for _, c := range v.basket {
 		sum += c
 	}
 	if sum < freeShippingFrom {
@@ -207,7 +207,7 @@ func (v *visitor) cartTotal() int32 {
 // the time of the action before it (else -1, -1).
 func (v *visitor) browse(r *stream, start int64, p browseProfile) (end, checkoutAt, before int64) {
 	t := start
-	v.cart = v.cart[:0]
+	v.basket = v.basket[:0]
 	views := 1 + r.extra(moreViews, 5)
 	for k := range views {
 		if k > 0 {
@@ -217,19 +217,19 @@ func (v *visitor) browse(r *stream, start int64, p browseProfile) (end, checkout
 		v.action(t, actViewItem, price)
 		if r.float() < p.add {
 			t += v.gap(r)
-			v.action(t, actAddToCart, price)
-			v.cart = append(v.cart, price)
+			v.action(t, actBasketAdd, price)
+			v.basket = append(v.basket, price)
 		}
 	}
-	if len(v.cart) > 0 && r.float() < p.remove {
+	if len(v.basket) > 0 && r.float() < p.remove {
 		t += v.gap(r)
-		v.action(t, actRemoveFromCart, v.cart[len(v.cart)-1])
-		v.cart = v.cart[:len(v.cart)-1]
+		v.action(t, actBasketRemove, v.basket[len(v.basket)-1])
+		v.basket = v.basket[:len(v.basket)-1]
 	}
-	if len(v.cart) > 0 && r.float() < p.checkout {
+	if len(v.basket) > 0 && r.float() < p.checkout {
 		before = t
 		t += v.gap(r)
-		v.action(t, actCheckout, v.cartTotal())
+		v.action(t, actCheckout, v.basketTotal())
 		return t, t, before
 	}
 	return t, -1, -1
@@ -363,12 +363,12 @@ func (v *visitor) couponTouch(r *stream, before, checkout int64) {
 	v.touch(chCoupon, t, interClick, v.campaign(chCoupon, t, r))
 }
 
-// buy plays a visit that intends to buy: views, cart, checkout and purchase,
+// buy plays a visit that intends to buy: views, basket, checkout and purchase,
 // unless the checkout falls into the outage.
 func (v *visitor) buy(d, coupon *stream, start int64) {
 	w := v.w
 	t := start
-	v.cart = v.cart[:0]
+	v.basket = v.basket[:0]
 	views := 1 + d.extra(moreViews, 5)
 	var price int32
 	for k := range views {
@@ -379,23 +379,23 @@ func (v *visitor) buy(d, coupon *stream, start int64) {
 		v.action(t, actViewItem, price)
 		if d.float() < buyerAddPerView {
 			t += v.gap(d)
-			v.action(t, actAddToCart, price)
-			v.cart = append(v.cart, price)
+			v.action(t, actBasketAdd, price)
+			v.basket = append(v.basket, price)
 		}
 	}
-	if len(v.cart) == 0 {
+	if len(v.basket) == 0 {
 		t += v.gap(d)
-		v.action(t, actAddToCart, price)
-		v.cart = append(v.cart, price)
+		v.action(t, actBasketAdd, price)
+		v.basket = append(v.basket, price)
 	}
-	if len(v.cart) >= 2 && d.float() < buyerRemove {
+	if len(v.basket) >= 2 && d.float() < buyerRemove {
 		t += v.gap(d)
-		v.action(t, actRemoveFromCart, v.cart[len(v.cart)-1])
-		v.cart = v.cart[:len(v.cart)-1]
+		v.action(t, actBasketRemove, v.basket[len(v.basket)-1])
+		v.basket = v.basket[:len(v.basket)-1]
 	}
 	before := t
 	t += v.gap(d)
-	total := v.cartTotal()
+	total := v.basketTotal()
 	v.action(t, actCheckout, total)
 	if !w.off[chCoupon] && coupon.float() < channelSpecs[chCoupon].checkoutBuyer {
 		v.couponTouch(coupon, before, t)
@@ -410,7 +410,7 @@ func (v *visitor) buy(d, coupon *stream, start int64) {
 		}
 		day := t/dayMs + 1 + int64(d.intn(3))
 		t = max(day*dayMs+v.timeOfDay(d), t+minVisitGapMs)
-		v.action(t, actViewItem, v.cart[0])
+		v.action(t, actViewItem, v.basket[0])
 		t += v.gap(d)
 		v.action(t, actCheckout, total)
 	}

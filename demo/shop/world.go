@@ -9,25 +9,25 @@ const ShopName = "Lantern & Moss"
 // Currency is the ISO 4217 code on every action event.
 const Currency = "EUR"
 
-// Funnel and conversion actions, as written in the events.
+// Funnel and goal actions, as written in the events.
 const (
-	ActionViewItem       = "view_item"
-	ActionAddToCart      = "add_to_cart"
-	ActionRemoveFromCart = "remove_from_cart"
-	ActionCheckout       = "checkout"
-	ActionPurchase       = "purchase"
+	ActionProductView  = "product_view"
+	ActionBasketAdd    = "basket_add"
+	ActionBasketRemove = "basket_remove"
+	ActionCheckout     = "checkout"
+	ActionOrder        = "order"
 )
 
 // action codes in records.
 const (
 	actViewItem uint8 = iota
-	actAddToCart
-	actRemoveFromCart
+	actBasketAdd
+	actBasketRemove
 	actCheckout
 	actPurchase
 )
 
-var actionNames = [...]string{ActionViewItem, ActionAddToCart, ActionRemoveFromCart, ActionCheckout, ActionPurchase}
+var actionNames = [...]string{ActionProductView, ActionBasketAdd, ActionBasketRemove, ActionCheckout, ActionOrder}
 
 // channel indices; the order is the order of Channels() and of the purchase
 // intervals in the decision (see doc.go).
@@ -182,7 +182,7 @@ var campaignNames = [...]string{
 var catalogCents = [...]int32{1250, 1090, 950, 2900, 1650, 3800, 6400, 2400, 1100, 5000}
 var catalogWeight = [...]float64{14, 12, 10, 8, 12, 6, 4, 5, 6, 3}
 
-// shipping is added to a cart below freeShippingFrom (cents, invented).
+// shipping is added to a basket below freeShippingFrom (cents, invented).
 const (
 	shippingCents    = 490
 	freeShippingFrom = 4500

@@ -145,27 +145,27 @@ type Config struct {
 	// watermark is that time minus the lateness, and older events are
 	// rejected as late. 0 means arrival order. Default 5m.
 	Lateness Duration `yaml:"lateness"`
-	// ConversionActions are the actions that count as conversions; a
+	// GoalActions are the actions that count as conversions; a
 	// conversion credits the journey's touches and ends the journey.
-	// Default [purchase].
-	ConversionActions []string `yaml:"conversion_actions"`
-	// FunnelSteps are the closed funnel's steps, in order.
-	// Default [view_item, add_to_cart, checkout, purchase].
+	// Default [order].
+	GoalActions []string `yaml:"goal_actions"`
+	// FunnelSteps are the in-order funnel's steps, in order.
+	// Default [product_view, basket_add, checkout, order].
 	FunnelSteps []string `yaml:"funnel_steps"`
-	// CartStep is the action whose sessions count for cart abandonment
-	// (reached it, did not convert). Default add_to_cart.
-	CartStep string `yaml:"cart_step"`
+	// BasketStep is the action whose sessions count for basket abandonment
+	// (reached it, did not convert). Default basket_add.
+	BasketStep string `yaml:"basket_step"`
 	// ClickLookback is the longest time from a click to the conversion it is
 	// credited for. Default 30d.
 	ClickLookback Duration `yaml:"click_lookback"`
 	// ViewLookback is the same for views; at most ClickLookback. Default 1d.
 	ViewLookback Duration `yaml:"view_lookback"`
-	// JourneyTimeout ends a journey without conversion (a null journey) when
+	// JourneyTimeout ends a journey without conversion (a lost journey, @lost) when
 	// its last touch is more than this before the next touch or conversion.
 	// Default 30d.
 	JourneyTimeout Duration `yaml:"journey_timeout"`
 	// DirectChannel is the channel credited in full when a conversion has no
-	// eligible touch, and the one last-non-direct skips. Default direct.
+	// eligible touch, and the one last-marketing skips. Default direct.
 	DirectChannel string `yaml:"direct_channel"`
 	// HalfLife is the time-decay model's half-life: a touch Δt before the
 	// conversion weighs 2^(−Δt/half_life). Default 7d.
@@ -181,7 +181,7 @@ type Config struct {
 	// transition counts are stored for every order up to it. Default 3.
 	MarkovMaxOrder int `yaml:"markov_max_order"`
 	// CollapseRepeats collapses consecutive repeats of a channel in Markov
-	// paths (A>A>B counts as A>B). Default true.
+	// paths (A → A → B counts as A → B). Default true.
 	CollapseRepeats bool `yaml:"collapse_repeats"`
 	// ShapleyCap is the most channels that are Shapley players (1 to 20; the
 	// work grows as 2^players); the rest are pooled as "other". Default 15.
@@ -208,24 +208,24 @@ type Config struct {
 // Default returns the documented defaults.
 func Default() Config {
 	return Config{
-		Currency:          "",
-		SessionGap:        Duration(30 * time.Minute),
-		Lateness:          Duration(5 * time.Minute),
-		ConversionActions: []string{"purchase"},
-		FunnelSteps:       []string{"view_item", "add_to_cart", "checkout", "purchase"},
-		CartStep:          "add_to_cart",
-		ClickLookback:     Duration(30 * day),
-		ViewLookback:      Duration(day),
-		JourneyTimeout:    Duration(30 * day),
-		DirectChannel:     "direct",
-		HalfLife:          Duration(7 * day),
-		PositionWeights:   PositionWeights{First: 0.4, Middle: 0.2, Last: 0.4},
-		DedupHorizon:      Duration(7 * day),
-		MarkovMaxOrder:    3,
-		CollapseRepeats:   true,
-		ShapleyCap:        15,
-		PathMaxLen:        8,
-		TopPathsCapacity:  1000,
+		Currency:         "",
+		SessionGap:       Duration(30 * time.Minute),
+		Lateness:         Duration(5 * time.Minute),
+		GoalActions:      []string{"order"},
+		FunnelSteps:      []string{"product_view", "basket_add", "checkout", "order"},
+		BasketStep:       "basket_add",
+		ClickLookback:    Duration(30 * day),
+		ViewLookback:     Duration(day),
+		JourneyTimeout:   Duration(30 * day),
+		DirectChannel:    "direct",
+		HalfLife:         Duration(7 * day),
+		PositionWeights:  PositionWeights{First: 0.4, Middle: 0.2, Last: 0.4},
+		DedupHorizon:     Duration(7 * day),
+		MarkovMaxOrder:   3,
+		CollapseRepeats:  true,
+		ShapleyCap:       15,
+		PathMaxLen:       8,
+		TopPathsCapacity: 1000,
 		Alert: Alert{
 			Interval:    Duration(5 * time.Minute),
 			Lambda:      0.2,
@@ -351,7 +351,7 @@ func wrap(text string, width int) string {
 	return b.String()
 }
 
-// IsConversion reports whether action is one of the conversion actions.
+// IsConversion reports whether action is one of the goal actions.
 func (c Config) IsConversion(action string) bool {
-	return slices.Contains(c.ConversionActions, action)
+	return slices.Contains(c.GoalActions, action)
 }

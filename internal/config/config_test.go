@@ -16,8 +16,8 @@ import (
 )
 
 // TestDefault checks the defaults against their sources: issue 2 ("Defaults:
-// session gap 30 min; allowed lateness 5 min; conversion action purchase;
-// funnel steps view_item, add_to_cart, checkout, purchase; click look-back 30
+// session gap 30 min; allowed lateness 5 min; goal action order;
+// funnel steps product_view, basket_add, checkout, order; click look-back 30
 // days; view look-back 1 day; journey timeout 30 days; direct channel name
 // direct; time-decay half-life 7 days; position-based weights 0.4 / 0.2 /
 // 0.4"; limits 64 KiB / 128 / 256 / 128), issue 3 (Markov order 3, Shapley
@@ -28,23 +28,23 @@ import (
 func TestDefault(t *testing.T) {
 	got := Default()
 	want := Config{
-		SessionGap:        Duration(30 * time.Minute),
-		Lateness:          Duration(5 * time.Minute),
-		ConversionActions: []string{"purchase"},
-		FunnelSteps:       []string{"view_item", "add_to_cart", "checkout", "purchase"},
-		CartStep:          "add_to_cart",
-		ClickLookback:     Duration(720 * time.Hour),
-		ViewLookback:      Duration(24 * time.Hour),
-		JourneyTimeout:    Duration(720 * time.Hour),
-		DirectChannel:     "direct",
-		HalfLife:          Duration(168 * time.Hour),
-		PositionWeights:   PositionWeights{First: 0.4, Middle: 0.2, Last: 0.4},
-		DedupHorizon:      Duration(168 * time.Hour),
-		MarkovMaxOrder:    3,
-		CollapseRepeats:   true,
-		ShapleyCap:        15,
-		PathMaxLen:        8,
-		TopPathsCapacity:  1000,
+		SessionGap:       Duration(30 * time.Minute),
+		Lateness:         Duration(5 * time.Minute),
+		GoalActions:      []string{"order"},
+		FunnelSteps:      []string{"product_view", "basket_add", "checkout", "order"},
+		BasketStep:       "basket_add",
+		ClickLookback:    Duration(720 * time.Hour),
+		ViewLookback:     Duration(24 * time.Hour),
+		JourneyTimeout:   Duration(720 * time.Hour),
+		DirectChannel:    "direct",
+		HalfLife:         Duration(168 * time.Hour),
+		PositionWeights:  PositionWeights{First: 0.4, Middle: 0.2, Last: 0.4},
+		DedupHorizon:     Duration(168 * time.Hour),
+		MarkovMaxOrder:   3,
+		CollapseRepeats:  true,
+		ShapleyCap:       15,
+		PathMaxLen:       8,
+		TopPathsCapacity: 1000,
 		Alert: Alert{Interval: Duration(5 * time.Minute), Lambda: 0.2, Limit: 3, MinSessions: 30,
 			Baseline: Duration(168 * time.Hour), CloseAfter: 3, Step: "checkout"},
 		Store: Store{
@@ -92,7 +92,7 @@ func TestYAMLRoundTripChanged(t *testing.T) {
 	c.Currency = "EUR"
 	c.SessionGap = Duration(90 * time.Minute)
 	c.Lateness = 0
-	c.ConversionActions = []string{"purchase", "signup"}
+	c.GoalActions = []string{"order", "signup"}
 	c.ViewLookback = Duration(36 * time.Hour)
 	c.PositionWeights = PositionWeights{First: 0.3, Middle: 0.3, Last: 0.4}
 	c.CollapseRepeats = false
@@ -118,7 +118,7 @@ func TestParseOverrides(t *testing.T) {
 # A shop that counts sign-ups too and sessions with a longer gap.
 currency: EUR
 session_gap: 45m
-conversion_actions: [purchase, signup]
+goal_actions: [order, signup]
 position_weights:
   first: 0.5
   middle: 0
@@ -137,7 +137,7 @@ store:
 	want := Default()
 	want.Currency = "EUR"
 	want.SessionGap = Duration(45 * time.Minute)
-	want.ConversionActions = []string{"purchase", "signup"}
+	want.GoalActions = []string{"order", "signup"}
 	want.PositionWeights = PositionWeights{First: 0.5, Middle: 0, Last: 0.5}
 	want.Alert.Lambda = 0.3
 	want.Store.Resolutions = []Resolution{{"five_minutes", Duration(5 * time.Minute), Duration(14 * 24 * time.Hour)}, {"day", Duration(24 * time.Hour), 0}}
@@ -173,7 +173,7 @@ func TestParseErrors(t *testing.T) {
 		{"duration as a list", "session_gap: [30m]\n", "line 1: a duration must be text"},
 		{"negative duration", "lateness: -5m\n", "has a sign"},
 		{"number as text", "markov_max_order: three\n", "cannot unmarshal"},
-		{"list where a name is wanted", "cart_step: [a, b]\n", "cannot unmarshal"},
+		{"list where a name is wanted", "basket_step: [a, b]\n", "cannot unmarshal"},
 		{"not a mapping", "- session_gap\n", "cannot unmarshal"},
 		{"bad yaml", "session_gap: [30m\n", "parse yaml"},
 		{"two documents", "session_gap: 30m\n---\nlateness: 1m\n", "more than one document"},
@@ -230,14 +230,18 @@ func TestValidate(t *testing.T) {
 		{"session gap zero", func(c *Config) { c.SessionGap = 0 }, []string{"session_gap"}},
 		{"lateness negative", func(c *Config) { c.Lateness = Duration(-time.Second) }, []string{"lateness"}},
 		{"lateness zero is arrival order", func(c *Config) { c.Lateness = 0 }, nil},
-		{"no conversion actions", func(c *Config) { c.ConversionActions = nil }, []string{"conversion_actions"}},
-		{"empty conversion action", func(c *Config) { c.ConversionActions = []string{"purchase", ""} }, []string{"conversion_actions[1]"}},
-		{"repeated conversion action", func(c *Config) { c.ConversionActions = []string{"purchase", "signup", "purchase"} }, []string{"conversion_actions[2]"}},
-		{"conversion action longer than max_name", func(c *Config) { c.ConversionActions = []string{strings.Repeat("x", 129)} }, []string{"conversion_actions[0]"}},
-		{"conversion action with a control character", func(c *Config) { c.ConversionActions = []string{"buy\x1f"} }, []string{"conversion_actions[0]"}},
+		{"no goal actions", func(c *Config) { c.GoalActions = nil }, []string{"goal_actions"}},
+		{"empty goal action", func(c *Config) { c.GoalActions = []string{"order", ""} }, []string{"goal_actions[1]"}},
+		{"repeated goal action", func(c *Config) { c.GoalActions = []string{"order", "signup", "order"} }, []string{"goal_actions[2]"}},
+		{"goal action longer than max_name", func(c *Config) { c.GoalActions = []string{strings.Repeat("x", 129)} }, []string{"goal_actions[0]"}},
+		{"goal action with a control character", func(c *Config) { c.GoalActions = []string{"buy\x1f"} }, []string{"goal_actions[0]"}},
 		{"no funnel steps", func(c *Config) { c.FunnelSteps = []string{} }, []string{"funnel_steps", "alert.step"}},
-		{"repeated funnel step", func(c *Config) { c.FunnelSteps = []string{"view_item", "checkout", "view_item"} }, []string{"funnel_steps[2]"}},
-		{"empty cart step", func(c *Config) { c.CartStep = "" }, []string{"cart_step"}},
+		{"repeated funnel step", func(c *Config) { c.FunnelSteps = []string{"product_view", "checkout", "product_view"} }, []string{"funnel_steps[2]"}},
+		{"empty basket step", func(c *Config) { c.BasketStep = "" }, []string{"basket_step"}},
+		{"reserved goal action", func(c *Config) { c.GoalActions = []string{"@converted"} }, []string{"goal_actions[0]"}},
+		{"reserved funnel step", func(c *Config) { c.FunnelSteps = []string{"@entry", "checkout", "order"} }, []string{"funnel_steps[0]"}},
+		{"reserved basket step", func(c *Config) { c.BasketStep = "@basket" }, []string{"basket_step"}},
+		{"reserved direct channel", func(c *Config) { c.DirectChannel = "@direct" }, []string{"direct_channel"}},
 		{"click lookback zero", func(c *Config) { c.ClickLookback = 0 }, []string{"click_lookback", "view_lookback"}},
 		{"view lookback zero", func(c *Config) { c.ViewLookback = 0 }, []string{"view_lookback"}},
 		{"view lookback above click lookback", func(c *Config) { c.ViewLookback = Duration(31 * 24 * time.Hour) }, []string{"view_lookback"}},
@@ -291,7 +295,7 @@ func TestValidate(t *testing.T) {
 		{"max id 0", func(c *Config) { c.Limits.MaxID = 0 }, []string{"limits.max_id"}},
 		{"max user 0", func(c *Config) { c.Limits.MaxUser = 0 }, []string{"limits.max_user"}},
 		{"max name shorter than the names", func(c *Config) { c.Limits.MaxName = 8 }, []string{
-			"funnel_steps[0]", "funnel_steps[1]", "cart_step"}},
+			"funnel_steps[0]", "funnel_steps[1]", "basket_step"}},
 		{"several problems at once", func(c *Config) { c.SessionGap = 0; c.ShapleyCap = 99; c.Limits.MaxID = 0 }, []string{
 			"session_gap", "shapley_cap", "limits.max_id"}},
 	}
@@ -337,11 +341,11 @@ func problemKeys(t *testing.T, err error) []string {
 
 func TestIsConversion(t *testing.T) {
 	c := Default()
-	c.ConversionActions = []string{"purchase", "signup"}
+	c.GoalActions = []string{"order", "signup"}
 	tests := []struct {
 		action string
 		want   bool
-	}{{"purchase", true}, {"signup", true}, {"checkout", false}, {"Purchase", false}, {"", false}}
+	}{{"order", true}, {"signup", true}, {"checkout", false}, {"Order", false}, {"", false}}
 	for _, tt := range tests {
 		if got := c.IsConversion(tt.action); got != tt.want {
 			t.Errorf("IsConversion(%q) = %v, want %v", tt.action, got, tt.want)

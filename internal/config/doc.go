@@ -18,7 +18,7 @@
 // # Invariants of a valid Config (Validate)
 //
 // Time settings are positive (lateness may be 0) and view_lookback ≤
-// click_lookback; conversion actions and funnel steps are non-empty lists of
+// click_lookback; goal actions and funnel steps are non-empty lists of
 // distinct names that fit limits.max_name; position weights are ≥ 0 and sum
 // to 1 within 1e-9; markov_max_order is 1..4 and shapley_cap 1..20; store
 // resolutions are named uniquely and sorted by step, each step a whole number

@@ -8,6 +8,8 @@ import (
 	"strconv"
 	"strings"
 	"time"
+
+	"github.com/touchledger/touchledger/internal/event"
 )
 
 // FieldError is one invalid setting, named by its dotted key.
@@ -30,9 +32,9 @@ func (c Config) Validate() error {
 	if c.Lateness < 0 {
 		v.add("lateness", "must not be negative, got %s", c.Lateness)
 	}
-	v.names("conversion_actions", c.ConversionActions, c.Limits.MaxName)
+	v.names("goal_actions", c.GoalActions, c.Limits.MaxName)
 	v.names("funnel_steps", c.FunnelSteps, c.Limits.MaxName)
-	v.name("cart_step", c.CartStep, c.Limits.MaxName)
+	v.name("basket_step", c.BasketStep, c.Limits.MaxName)
 	v.positive("click_lookback", c.ClickLookback)
 	v.positive("view_lookback", c.ViewLookback)
 	if c.ViewLookback > c.ClickLookback {
@@ -135,7 +137,8 @@ func (v *validation) between(key string, n, low, high int) {
 }
 
 // name checks an action or channel name: non-empty, within the event name
-// limit (or no event could carry it), free of control characters.
+// limit (or no event could carry it), free of control characters, not
+// beginning with the reserved "@" (the decoder rejects such events).
 func (v *validation) name(key, s string, limit int) {
 	switch {
 	case s == "":
@@ -144,6 +147,8 @@ func (v *validation) name(key, s string, limit int) {
 		v.add(key, "is %d bytes, longer than limits.max_name (%d)", len(s), limit)
 	case hasControl(s):
 		v.add(key, "must not hold control characters, got %q", s)
+	case event.IsReserved(s):
+		v.add(key, "must not begin with %q (reserved for the states touchledger adds, such as %s), got %q", event.ReservedPrefix, event.StateConverted, s)
 	}
 }
 

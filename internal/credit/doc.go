@@ -11,7 +11,7 @@
 //
 //	first-touch      w_1 = 1
 //	last-touch       w_n = 1
-//	last-non-direct  1 on the last touch whose channel is not Params.Direct;
+//	last-marketing  1 on the last touch whose channel is not Params.Direct;
 //	                 if every touch is direct, the last one
 //	linear           w_i = 1/n
 //	time-decay       w_i ∝ 2^(−Δt_i / h), h = Params.HalfLife
@@ -33,21 +33,21 @@
 //
 // # Markov-chain removal effect (over a window's transition counts)
 //
-// A journey is the path START → s_1 → … → s_m → CONVERSION (or NULL). At
+// A journey is the path @entry → s_1 → … → s_m → @converted (or @lost). At
 // order k a state is the tuple of the last <= k channels (the first k−1
 // states are the shorter prefixes); PathTransitions produces these steps and
 // StateOf / StateChannels encode a tuple as its channel names joined by the
 // byte 0x1f (reserved states start with 0x00, so channel names must not
 // contain 0x1f nor start with 0x00). Transition counts c(a,b) add across time
 // buckets and partitions; Markov turns them into p(a,b) = c(a,b)/Σ_b' c(a,b')
-// and, with CONVERSION and NULL absorbing, solves
+// and, with @converted and @lost absorbing, solves
 //
-//	x_s = p(s, CONVERSION) + Σ_t p(s,t)·x_t,  i.e. (I − Q) x = r,
+//	x_s = p(s, @converted) + Σ_t p(s,t)·x_t,  i.e. (I − Q) x = r,
 //
 // for the probability of conversion from each transient state (fundamental
 // matrix N = (I − Q)^−1, B = N·R; Kemeny & Snell 1960; Grinstead & Snell
 // ch. 11). P = x_START. Removing channel c sends every transition into a
-// state whose tuple contains c to NULL, giving P_−c; the removal effect is
+// state whose tuple contains c to @lost, giving P_−c; the removal effect is
 // RE(c) = 1 − P_−c/P and a channel's share is RE(c)/Σ RE (Anderl, Becker, von
 // Wangenheim & Schumann 2016, IJRM 33(3); the "set P(Exit|N) = 1" reading of
 // stats.stackexchange.com/q/336227). Invariants: RE in [0, 1], shares sum to
@@ -60,7 +60,7 @@
 // Removal effects are not additive across buckets: sum the counts, then call
 // Markov once (check-values.md §7).
 //
-// Solving. Only states reachable from START that can reach CONVERSION take
+// Solving. Only states reachable from @entry that can reach @converted take
 // part (every other state converts with probability 0, removal or not).
 // Chains of up to 160 such states (order 1 up to 159 channels) are solved
 // with gonum's dense LU decomposition, one system per removal. Larger chains (an order-3

@@ -10,9 +10,9 @@ import (
 // Reserved Markov states. They start with the byte 0x00, which no channel
 // state does.
 const (
-	StateStart      = "\x00start"
-	StateConversion = "\x00conversion"
-	StateNull       = "\x00null"
+	StateEntry     = "\x00entry"
+	StateConverted = "\x00converted"
+	StateLost      = "\x00lost"
 )
 
 // stateSep joins the channels of a state's tuple. Channel names must not
@@ -35,19 +35,19 @@ func StateChannels(s string) []string {
 type Transition struct{ From, To string }
 
 // PathTransitions appends to dst the order-k transitions of one journey path
-// and returns the extended slice: START → (c1) → (c1,c2) → … where each state
+// and returns the extended slice: @entry → (c1) → (c1,c2) → … where each state
 // is the tuple of the last <= k channels (so the first k−1 states are the
-// shorter prefixes, the same as padding with START), then → CONVERSION if
-// converted, else → NULL. With collapse, consecutive repeats of a channel are
-// removed from the path first. An empty path gives START → CONVERSION/NULL.
+// shorter prefixes, the same as padding with @entry), then → @converted if
+// converted, else → @lost. With collapse, consecutive repeats of a channel are
+// removed from the path first. An empty path gives @entry → @converted/@lost.
 // k < 1 is taken as 1. The states of one call share a single allocated string.
 func PathTransitions(dst []Transition, path []string, k int, converted, collapse bool) []Transition {
 	if k < 1 {
 		k = 1
 	}
-	end := StateNull
+	end := StateLost
 	if converted {
-		end = StateConversion
+		end = StateConverted
 	}
 	skip := func(i int) bool { return collapse && i > 0 && path[i] == path[i-1] }
 
@@ -77,7 +77,7 @@ func PathTransitions(dst []Transition, path []string, k int, converted, collapse
 	}
 	joined := b.String()
 
-	from := StateStart
+	from := StateEntry
 	winStart, pos, inWindow := 0, 0, 0
 	for i, c := range path {
 		if skip(i) {
@@ -107,14 +107,14 @@ type TransitionCount struct {
 // MarkovResult is the answer of Markov.
 type MarkovResult struct {
 	Order         int       // longest channel tuple of any state
-	PConversion   float64   // P(reach CONVERSION from START)
+	PConversion   float64   // P(reach @converted from @entry)
 	Channels      []string  // every channel named by a state, sorted
 	RemovalEffect []float64 // 1 − P_{−c}/P per channel, in [0, 1]
 	Share         []float64 // RemovalEffect normalised to sum 1
 }
 
-// ErrNoConversionPath is returned by Markov when CONVERSION cannot be reached
-// from START (P = 0): removal effects are undefined.
+// ErrNoConversionPath is returned by Markov when @converted cannot be reached
+// from @entry (P = 0): removal effects are undefined.
 var ErrNoConversionPath = errors.New("markov: no path from start to conversion")
 
 // ErrNoRemovalEffect is returned by Markov when every removal effect is 0
@@ -124,9 +124,9 @@ var ErrNoRemovalEffect = errors.New("markov: every removal effect is zero")
 // Markov computes the conversion probability and each channel's removal
 // effect from aggregated transition counts of one order (see the package
 // overview for the formulas). Removing channel c sends every transition into
-// a state whose tuple contains c to NULL. Counts may repeat a (From, To) pair;
+// a state whose tuple contains c to @lost. Counts may repeat a (From, To) pair;
 // repeats add. Zero counts are ignored; negative counts, transitions out of
-// CONVERSION or NULL and transitions into START are errors. On
+// @converted or @lost and transitions into @entry are errors. On
 // ErrNoConversionPath or ErrNoRemovalEffect the result holds what was
 // computed (Order, Channels, PConversion and the zero removal effects).
 func Markov(counts []TransitionCount) (MarkovResult, error) {
@@ -197,7 +197,7 @@ func (ch *chain) removalEffects(dense int) (MarkovResult, error) {
 	return res, nil
 }
 
-// denseProbabilities returns P(CONVERSION | START) without removal and with
+// denseProbabilities returns P(@converted | @entry) without removal and with
 // each removal set, one gonum LU solve per system.
 func (ch *chain) denseProbabilities(removals [][]int32) (float64, []float64, error) {
 	s := newDenseSolver(ch)
@@ -231,16 +231,16 @@ func (ch *chain) denseProbabilities(removals [][]int32) (float64, []float64, err
 const reFloor = 1e-9
 
 // chain is the transient part of an absorbing Markov chain in compressed
-// sparse row form, restricted to states reachable from START that can reach
-// CONVERSION (every other state has conversion probability 0, with or without
-// a removal). State 0 is START; the rest are numbered in breadth-first order
-// from START.
+// sparse row form, restricted to states reachable from @entry that can reach
+// @converted (every other state has conversion probability 0, with or without
+// a removal). State 0 is @entry; the rest are numbered in breadth-first order
+// from @entry.
 type chain struct {
 	n        int
 	rowStart []int32   // row s holds edges rowStart[s]:rowStart[s+1]
 	col      []int32   // edge target (a transient state, never s itself)
 	prob     []float64 // edge probability
-	conv     []float64 // p(s → CONVERSION)
+	conv     []float64 // p(s → @converted)
 	stay     []float64 // p(s → s), the self-loop
 	invStay  []float64 // 1 / (1 − p(s → s))
 	names    []string  // state names, for error messages and tests
@@ -266,9 +266,9 @@ func buildChain(counts []TransitionCount) (*chain, error) {
 	// States have several outgoing transitions each: a quarter of the
 	// counts is a fair first guess at the number of states.
 	index := make(map[string]int32, len(counts)/4+1)
-	index[StateStart] = 0
+	index[StateEntry] = 0
 	names := make([]string, 1, len(counts)/4+1)
-	names[0] = StateStart
+	names[0] = StateEntry
 	intern := func(s string) int32 {
 		if i, ok := index[s]; ok {
 			return i
@@ -375,7 +375,7 @@ func buildChain(counts []TransitionCount) (*chain, error) {
 		}
 	}
 
-	// Reachable from START: breadth-first, which also gives the numbering.
+	// Reachable from @entry: breadth-first, which also gives the numbering.
 	newID := make([]int32, all)
 	for i := range newID {
 		newID[i] = -1
@@ -391,7 +391,7 @@ func buildChain(counts []TransitionCount) (*chain, error) {
 			}
 		}
 	}
-	// Can reach CONVERSION: backward breadth-first search from the states
+	// Can reach @converted: backward breadth-first search from the states
 	// with a conversion edge, over the reversed adjacency.
 	inDeg := make([]int32, all+1)
 	for _, t := range adj {
@@ -490,9 +490,9 @@ func buildChain(counts []TransitionCount) (*chain, error) {
 // checkFrom validates a transition's source state.
 func checkFrom(s string) error {
 	switch {
-	case s == StateStart:
+	case s == StateEntry:
 		return nil
-	case s == StateConversion || s == StateNull:
+	case s == StateConverted || s == StateLost:
 		return fmt.Errorf("markov: transition out of absorbing state %s", label(s))
 	case s == "" || s[0] == 0:
 		return fmt.Errorf("markov: invalid source state %q", s)
@@ -504,11 +504,11 @@ func checkFrom(s string) error {
 // channel state still to be interned.
 func targetOf(s string) (int32, error) {
 	switch {
-	case s == StateConversion:
+	case s == StateConverted:
 		return toConv, nil
-	case s == StateNull:
+	case s == StateLost:
 		return toNull, nil
-	case s == StateStart:
+	case s == StateEntry:
 		return 0, errors.New("markov: transition into start")
 	case s == "" || s[0] == 0:
 		return 0, fmt.Errorf("markov: invalid target state %q", s)

@@ -72,7 +72,7 @@ func TestStateOfAndChannels(t *testing.T) {
 			t.Errorf("StateChannels(StateOf(%q)) = %q", tuple, got)
 		}
 	}
-	for _, s := range []string{StateStart, StateConversion, StateNull, ""} {
+	for _, s := range []string{StateEntry, StateConverted, StateLost, ""} {
 		if got := StateChannels(s); got != nil {
 			t.Errorf("StateChannels(%q) = %q, want nil", s, got)
 		}
@@ -83,7 +83,7 @@ func TestStateOfAndChannels(t *testing.T) {
 }
 
 // Expected transitions follow the state definition of check-values.md §3
-// item 6: the tuple of the last <= k channels, START-padded prefixes first.
+// item 6: the tuple of the last <= k channels, @entry-padded prefixes first.
 func TestPathTransitions(t *testing.T) {
 	st := func(cs ...string) string { return StateOf(cs) }
 	tests := []struct {
@@ -95,26 +95,26 @@ func TestPathTransitions(t *testing.T) {
 		want      []Transition
 	}{
 		{"order 1", "A>B>C", 1, true, true, []Transition{
-			{StateStart, st("A")}, {st("A"), st("B")}, {st("B"), st("C")}, {st("C"), StateConversion}}},
+			{StateEntry, st("A")}, {st("A"), st("B")}, {st("B"), st("C")}, {st("C"), StateConverted}}},
 		{"order 2", "A>B>C", 2, false, true, []Transition{
-			{StateStart, st("A")}, {st("A"), st("A", "B")}, {st("A", "B"), st("B", "C")}, {st("B", "C"), StateNull}}},
+			{StateEntry, st("A")}, {st("A"), st("A", "B")}, {st("A", "B"), st("B", "C")}, {st("B", "C"), StateLost}}},
 		{"order 3 longer path", "A>B>C>D", 3, true, true, []Transition{
-			{StateStart, st("A")}, {st("A"), st("A", "B")}, {st("A", "B"), st("A", "B", "C")},
-			{st("A", "B", "C"), st("B", "C", "D")}, {st("B", "C", "D"), StateConversion}}},
+			{StateEntry, st("A")}, {st("A"), st("A", "B")}, {st("A", "B"), st("A", "B", "C")},
+			{st("A", "B", "C"), st("B", "C", "D")}, {st("B", "C", "D"), StateConverted}}},
 		{"order 3 short path", "A>B", 3, false, false, []Transition{
-			{StateStart, st("A")}, {st("A"), st("A", "B")}, {st("A", "B"), StateNull}}},
+			{StateEntry, st("A")}, {st("A"), st("A", "B")}, {st("A", "B"), StateLost}}},
 		{"collapse repeats", "A>A>B>B>A", 1, true, true, []Transition{
-			{StateStart, st("A")}, {st("A"), st("B")}, {st("B"), st("A")}, {st("A"), StateConversion}}},
+			{StateEntry, st("A")}, {st("A"), st("B")}, {st("B"), st("A")}, {st("A"), StateConverted}}},
 		{"keep repeats order 1", "A>A>B", 1, true, false, []Transition{
-			{StateStart, st("A")}, {st("A"), st("A")}, {st("A"), st("B")}, {st("B"), StateConversion}}},
+			{StateEntry, st("A")}, {st("A"), st("A")}, {st("A"), st("B")}, {st("B"), StateConverted}}},
 		{"keep repeats order 2", "A>A>B", 2, false, false, []Transition{
-			{StateStart, st("A")}, {st("A"), st("A", "A")}, {st("A", "A"), st("A", "B")}, {st("A", "B"), StateNull}}},
+			{StateEntry, st("A")}, {st("A"), st("A", "A")}, {st("A", "A"), st("A", "B")}, {st("A", "B"), StateLost}}},
 		{"collapse order 2", "A>A>B", 2, false, true, []Transition{
-			{StateStart, st("A")}, {st("A"), st("A", "B")}, {st("A", "B"), StateNull}}},
-		{"empty converted", "", 2, true, true, []Transition{{StateStart, StateConversion}}},
-		{"empty null", "", 1, false, false, []Transition{{StateStart, StateNull}}},
+			{StateEntry, st("A")}, {st("A"), st("A", "B")}, {st("A", "B"), StateLost}}},
+		{"empty converted", "", 2, true, true, []Transition{{StateEntry, StateConverted}}},
+		{"empty null", "", 1, false, false, []Transition{{StateEntry, StateLost}}},
 		{"k below 1 is 1", "A>B", 0, true, true, []Transition{
-			{StateStart, st("A")}, {st("A"), st("B")}, {st("B"), StateConversion}}},
+			{StateEntry, st("A")}, {st("A"), st("B")}, {st("B"), StateConverted}}},
 	}
 	for _, tt := range tests {
 		t.Run(tt.name, func(t *testing.T) {
@@ -292,10 +292,10 @@ func TestMarkovFundamentalMatrix(t *testing.T) {
 		n        [][]float64
 		conv     []float64
 	}{
-		{"EX1", ex1, []string{StateStart, "A", "B", "C"},
+		{"EX1", ex1, []string{StateEntry, "A", "B", "C"},
 			[][]float64{{1, 2.0 / 3, 2.0 / 3, 2.0 / 3}, {0, 1, 0.5, 0.5}, {0, 0, 1, 1}, {0, 0, 0, 1}},
 			[]float64{1.0 / 3, 0.25, 0.5, 0.5}},
-		{"EX2b", ex2b, []string{StateStart, "A", "B"},
+		{"EX2b", ex2b, []string{StateEntry, "A", "B"},
 			[][]float64{{1, 1, 1}, {0, 4.0 / 3, 2.0 / 3}, {0, 2.0 / 3, 4.0 / 3}},
 			[]float64{0.5, 2.0 / 3, 1.0 / 3}},
 	}
@@ -345,15 +345,15 @@ func TestMarkovFundamentalMatrix(t *testing.T) {
 
 // The app-navigation chain of stats.stackexchange.com/q/336227 with
 // "Notification Center" sent to Exit: purchase probability 11.4 % [source],
-// exactly 5/44 [computed, check-values.md §3]. Open App is START; the
+// exactly 5/44 [computed, check-values.md §3]. Open App is @entry; the
 // printed probabilities become counts out of 20.
 func TestMarkovStackExchangeRemoval(t *testing.T) {
 	const social, store, notif = "social", "store", "notification_center"
 	printed := []TransitionCount{
-		{StateStart, social, 10}, {StateStart, store, 10},
-		{social, store, 6}, {social, notif, 3}, {social, StateNull, 10}, {social, StateConversion, 1},
-		{store, social, 8}, {store, notif, 2}, {store, StateNull, 8}, {store, StateConversion, 2},
-		{notif, StateNull, 20},
+		{StateEntry, social, 10}, {StateEntry, store, 10},
+		{social, store, 6}, {social, notif, 3}, {social, StateLost, 10}, {social, StateConverted, 1},
+		{store, social, 8}, {store, notif, 2}, {store, StateLost, 8}, {store, StateConverted, 2},
+		{notif, StateLost, 20},
 	}
 	for _, mode := range solverModes {
 		t.Run("removed/"+mode.name, func(t *testing.T) {
@@ -373,7 +373,7 @@ func TestMarkovStackExchangeRemoval(t *testing.T) {
 		// remove it; the conversion probability must be 5/44 again.
 		t.Run("removal/"+mode.name, func(t *testing.T) {
 			counts := append(slices.Clone(printed[:len(printed)-1]),
-				TransitionCount{notif, social, 5}, TransitionCount{notif, store, 5}, TransitionCount{notif, StateConversion, 1})
+				TransitionCount{notif, social, 5}, TransitionCount{notif, store, 5}, TransitionCount{notif, StateConverted, 1})
 			ch, err := buildChain(counts)
 			if err != nil {
 				t.Fatal(err)
@@ -489,12 +489,12 @@ func TestMarkovCollapseOrder1(t *testing.T) {
 }
 
 // powerConversion is an independent reference: it builds the full
-// transition matrix straight from the counts (absorbing CONVERSION and NULL,
-// every transition into a removed state redirected to NULL), squares it
-// 60 times and reads P^∞[START][CONVERSION]. It shares no code
+// transition matrix straight from the counts (absorbing @converted and @lost,
+// every transition into a removed state redirected to @lost), squares it
+// 60 times and reads P^∞[@entry][@converted]. It shares no code
 // with buildChain or the solvers.
 func powerConversion(counts []TransitionCount, removed func(state string) bool) float64 {
-	idx := map[string]int{StateStart: 0, StateConversion: 1, StateNull: 2}
+	idx := map[string]int{StateEntry: 0, StateConverted: 1, StateLost: 2}
 	for _, c := range counts {
 		for _, s := range []string{c.From, c.To} {
 			if _, ok := idx[s]; !ok {
@@ -511,7 +511,7 @@ func powerConversion(counts []TransitionCount, removed func(state string) bool) 
 	for _, c := range counts {
 		to := idx[c.To]
 		if removed != nil && removed(c.To) {
-			to = idx[StateNull]
+			to = idx[StateLost]
 		}
 		from := idx[c.From]
 		p.Set(from, to, p.At(from, to)+float64(c.Count)/rowTotal[from])
@@ -536,7 +536,7 @@ func powerConversion(counts []TransitionCount, removed func(state string) bool) 
 // randomCounts draws arbitrary transition counts between random tuples of
 // the given order (not necessarily consistent journeys), for solver checks.
 func randomCounts(r *rand.Rand, channels, order, states int) []TransitionCount {
-	names := []string{StateStart}
+	names := []string{StateEntry}
 	seen := map[string]bool{}
 	possible, power := 0, 1
 	for range order {
@@ -559,12 +559,12 @@ func randomCounts(r *rand.Rand, channels, order, states int) []TransitionCount {
 		for range 1 + r.IntN(4) {
 			counts = append(counts, TransitionCount{from, names[1+r.IntN(len(names)-1)], int64(1 + r.IntN(9))})
 		}
-		if from != StateStart || r.IntN(5) == 0 {
+		if from != StateEntry || r.IntN(5) == 0 {
 			switch r.IntN(3) {
 			case 0:
-				counts = append(counts, TransitionCount{from, StateConversion, int64(1 + r.IntN(4))})
+				counts = append(counts, TransitionCount{from, StateConverted, int64(1 + r.IntN(4))})
 			case 1:
-				counts = append(counts, TransitionCount{from, StateNull, int64(1 + r.IntN(4))})
+				counts = append(counts, TransitionCount{from, StateLost, int64(1 + r.IntN(4))})
 			}
 		}
 	}
@@ -657,13 +657,13 @@ func TestMarkovErrors(t *testing.T) {
 	}{
 		{"no counts", nil, ErrNoConversionPath},
 		{"nobody converts", countsOf([]journey{{"A>B", false, 3}}, 1, true), ErrNoConversionPath},
-		{"conversion unreachable", []TransitionCount{{StateStart, "A", 1}, {"A", StateNull, 1}, {"B", StateConversion, 1}}, ErrNoConversionPath},
+		{"conversion unreachable", []TransitionCount{{StateEntry, "A", 1}, {"A", StateLost, 1}, {"B", StateConverted, 1}}, ErrNoConversionPath},
 		{"only empty paths convert", countsOf([]journey{{"", true, 2}, {"A", false, 1}}, 1, true), ErrNoRemovalEffect},
-		{"negative count", []TransitionCount{{StateStart, "A", -1}}, nil},
-		{"out of conversion", []TransitionCount{{StateConversion, "A", 1}}, nil},
-		{"out of null", []TransitionCount{{StateNull, "A", 1}}, nil},
-		{"into start", []TransitionCount{{"A", StateStart, 1}}, nil},
-		{"empty state", []TransitionCount{{StateStart, "", 1}}, nil},
+		{"negative count", []TransitionCount{{StateEntry, "A", -1}}, nil},
+		{"out of conversion", []TransitionCount{{StateConverted, "A", 1}}, nil},
+		{"out of null", []TransitionCount{{StateLost, "A", 1}}, nil},
+		{"into start", []TransitionCount{{"A", StateEntry, 1}}, nil},
+		{"empty state", []TransitionCount{{StateEntry, "", 1}}, nil},
 		{"unknown reserved state", []TransitionCount{{"\x00exit", "A", 1}}, nil},
 	}
 	for _, tt := range tests {

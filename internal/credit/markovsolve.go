@@ -25,7 +25,7 @@ const denseLimit = 160
 // successive changes) is below relTol times the conversion probability. On
 // journey data the estimate is conservative by about two orders of
 // magnitude: measured errors of P_{−c}/P are ~1e-12. absFloor keeps the rule
-// finite when every START probability is 0.
+// finite when every @entry probability is 0.
 const (
 	relTol    = 1e-10
 	absFloor  = 1e-30
@@ -34,7 +34,7 @@ const (
 
 // denseSolver solves (I − Q) x = r for a chain with gonum's LU
 // decomposition, optionally with some states removed (x fixed at 0 there,
-// every transition into them going to NULL).
+// every transition into them going to @lost).
 type denseSolver struct {
 	ch  *chain
 	a   *mat.Dense
@@ -53,7 +53,7 @@ func newDenseSolver(ch *chain) *denseSolver {
 }
 
 // solve writes the conversion probability of every transient state into x;
-// removed (nil: none) marks the states sent to NULL. It builds I − Q with
+// removed (nil: none) marks the states sent to @lost. It builds I − Q with
 // removed states as identity rows (x = 0) and zero columns.
 func (s *denseSolver) solve(x []float64, removed []bool) error {
 	ch := s.ch
@@ -90,7 +90,7 @@ func (s *denseSolver) solve(x []float64, removed []bool) error {
 // and last changes, 1.5 MiB) still fit a core's cache.
 const maxSweepColumns = 12
 
-// sweepProbabilities returns P(CONVERSION | START) without removal and with
+// sweepProbabilities returns P(@converted | @entry) without removal and with
 // each removal set, by Gauss–Seidel sweeps: first the full chain alone, then
 // the removal systems in even groups of at most maxSweepColumns, started from
 // the full solution (an upper bound) and spread over up to GOMAXPROCS
@@ -154,7 +154,7 @@ func (ch *chain) sweepProbabilities(removals [][]int32) (float64, []float64, err
 // x ← x + (x − x_prev)·ρ/(1−ρ), which removes most of that mode and roughly
 // halves the sweeps needed. A system stops when the estimated remaining
 // error Δ·ρ/(1−ρ) is below relTol·ref, ref being the unremoved P when known,
-// else its largest START value so far.
+// else its largest @entry value so far.
 func (ch *chain) sweep(x []float64, removals [][]int32, start []float64, ref float64) error {
 	n, m := ch.n, len(removals)
 	x = x[:n*m]

@@ -16,19 +16,19 @@ type Model uint8
 const (
 	FirstTouch Model = iota
 	LastTouch
-	LastNonDirect
+	LastMarketing
 	Linear
 	TimeDecay
 	PositionBased
 )
 
 // RuleModels lists every rule-based model in a fixed order.
-var RuleModels = []Model{FirstTouch, LastTouch, LastNonDirect, Linear, TimeDecay, PositionBased}
+var RuleModels = []Model{FirstTouch, LastTouch, LastMarketing, Linear, TimeDecay, PositionBased}
 
 var modelNames = [...]string{
 	FirstTouch:    "first-touch",
 	LastTouch:     "last-touch",
-	LastNonDirect: "last-non-direct",
+	LastMarketing: "last-marketing",
 	Linear:        "linear",
 	TimeDecay:     "time-decay",
 	PositionBased: "position-based",
@@ -153,7 +153,7 @@ func Weights(m Model, p Params, touches []Touch, conv time.Time, dst []float64) 
 		dst[0] = 1
 	case LastTouch:
 		dst[n-1] = 1
-	case LastNonDirect:
+	case LastMarketing:
 		pick := n - 1
 		for i := n - 1; i >= 0; i-- {
 			if touches[i].Channel != p.Direct {

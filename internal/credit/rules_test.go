@@ -24,7 +24,7 @@ func touchesAgo(channels []string, ages []time.Duration) []Touch {
 }
 
 func TestModelNames(t *testing.T) {
-	want := []string{"first-touch", "last-touch", "last-non-direct", "linear", "time-decay", "position-based"}
+	want := []string{"first-touch", "last-touch", "last-marketing", "linear", "time-decay", "position-based"}
 	for i, m := range RuleModels {
 		if got := m.String(); got != want[i] {
 			t.Errorf("%d.String() = %q, want %q", m, got, want[i])
@@ -61,7 +61,7 @@ func TestWeightsFiveTouches(t *testing.T) {
 	}{
 		{FirstTouch, []float64{50, 0, 0, 0, 0}},
 		{LastTouch, []float64{0, 0, 0, 0, 50}},
-		{LastNonDirect, []float64{0, 0, 0, 50, 0}},
+		{LastMarketing, []float64{0, 0, 0, 50, 0}},
 		{Linear, []float64{10, 10, 10, 10, 10}},
 		{TimeDecay, []float64{50.0 / 31, 100.0 / 31, 200.0 / 31, 400.0 / 31, 800.0 / 31}},
 		{PositionBased, []float64{20, 10.0 / 3, 10.0 / 3, 10.0 / 3, 20}},
@@ -155,9 +155,9 @@ func TestTimeDecayExtremes(t *testing.T) {
 	}
 }
 
-// Last non-direct: the last touch whose channel is not the direct channel;
+// Last-marketing: the last touch whose channel is not the direct channel;
 // if all are direct, the last (issue 2 item 6; check-values.md §2).
-func TestLastNonDirect(t *testing.T) {
+func TestLastMarketing(t *testing.T) {
 	tests := []struct {
 		name     string
 		channels []string
@@ -177,7 +177,7 @@ func TestLastNonDirect(t *testing.T) {
 			for i := range ages {
 				ages[i] = time.Duration(len(ages)-i) * time.Hour
 			}
-			w := Weights(LastNonDirect, Params{Direct: tt.direct}, touchesAgo(tt.channels, ages), conv, nil)
+			w := Weights(LastMarketing, Params{Direct: tt.direct}, touchesAgo(tt.channels, ages), conv, nil)
 			want := make([]float64, len(tt.channels))
 			want[tt.want] = 1
 			if !slices.Equal(w, want) {

@@ -7,6 +7,7 @@ import (
 	"strings"
 	"time"
 
+	"github.com/touchledger/touchledger/internal/event"
 	"github.com/touchledger/touchledger/internal/pathstats"
 	"github.com/touchledger/touchledger/internal/query"
 )
@@ -170,14 +171,14 @@ func ModelSeries(credits []ModelCredit, ch Channels) ([]string, []Series) {
 // Row and column markers of the channel transition matrix, as the query
 // answer names them.
 const (
-	stateStart      = "START"
-	stateConversion = "CONVERSION"
-	stateNull       = "NULL"
+	stateStart      = event.StateEntry
+	stateConversion = event.StateConverted
+	stateNull       = event.StateLost
 )
 
 // TransitionGrid lays a channel transition answer out as a matrix: rows
-// START then the channels by name, columns the channels then CONVERSION and
-// NULL; a cell is the row probability of the transition with its count.
+// @entry then the channels by name, columns the channels then @converted and
+// @lost; a cell is the row probability of the transition with its count.
 func TransitionGrid(a query.TransitionsAnswer) (rows, cols []string, cells [][]HeatCell) {
 	seen := map[string]bool{}
 	for _, t := range a.Transitions {
@@ -224,7 +225,7 @@ func TransitionGrid(a query.TransitionsAnswer) (rows, cols []string, cells [][]H
 // FlowFrom builds the flow of the main action paths, with all action
 // transitions for the tooltips.
 func FlowFrom(paths query.PathsAnswer, actions query.TransitionsAnswer) FlowData {
-	d := FlowData{Sessions: paths.Total, Start: query.ActionStart, End: query.ActionEnd}
+	d := FlowData{Sessions: paths.Total, Start: event.StateEntry, End: event.StateExit}
 	for _, p := range paths.Paths {
 		if p.Path == "" {
 			continue

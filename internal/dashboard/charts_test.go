@@ -41,17 +41,17 @@ func goldenControl() ControlData {
 
 func goldenFlow() FlowData {
 	return FlowData{
-		Sessions: 1000, Start: "START", End: "END",
+		Sessions: 1000, Start: "@entry", End: "@exit",
 		Paths: []FlowPath{
-			{Steps: []string{"view_item"}, Count: 500},
-			{Steps: []string{"view_item", "add_to_cart"}, Count: 200},
-			{Steps: []string{"view_item", "add_to_cart", "checkout", "purchase"}, Count: 120, Conversions: 120},
-			{Steps: []string{"add_to_cart", "view_item"}, Count: 40},
+			{Steps: []string{"product_view"}, Count: 500},
+			{Steps: []string{"product_view", "basket_add"}, Count: 200},
+			{Steps: []string{"product_view", "basket_add", "checkout", "order"}, Count: 120, Conversions: 120},
+			{Steps: []string{"basket_add", "product_view"}, Count: 40},
 		},
 		Next: []FlowLink{
-			{From: "START", To: "view_item", Count: 900, Probability: 0.9},
-			{From: "START", To: "add_to_cart", Count: 100, Probability: 0.1},
-			{From: "view_item", To: "add_to_cart", Count: 400, Probability: 0.4},
+			{From: "@entry", To: "product_view", Count: 900, Probability: 0.9},
+			{From: "@entry", To: "basket_add", Count: 100, Probability: 0.1},
+			{From: "product_view", To: "basket_add", Count: 400, Probability: 0.4},
 		},
 	}
 }
@@ -70,17 +70,17 @@ func TestGoldenCharts(t *testing.T) {
 			{Name: "social_ads", Values: []float64{0.3, 0.25, -0.1}},
 			{Name: "direct", Values: []float64{0.2, 0.5, 0.5}},
 		}, Frame{ID: "t-bars", Title: "Models", Desc: "Bars.", XLabel: "attribution model", YLabel: "share", Unit: Percent, Width: 640})},
-		{"heatmap.svg", Heatmap([]string{"START", "search_ads", "social_ads"}, []string{"search_ads", "social_ads", "CONVERSION", "NULL"}, [][]HeatCell{
+		{"heatmap.svg", Heatmap([]string{"@entry", "search_ads", "social_ads"}, []string{"search_ads", "social_ads", "@converted", "@lost"}, [][]HeatCell{
 			{{Has: true, Value: 0.75, Count: 75}, {Has: true, Value: 0.25, Count: 25}, {}, {}},
 			{{}, {Has: true, Value: 0.1, Count: 10}, {Has: true, Value: 0.3, Count: 30}, {Has: true, Value: 0.6, Count: 60}},
 			{{Has: true, Value: 0.0004, Count: 1}, {}, {Has: true, Value: 0.05, Count: 5}, {Has: true, Value: 0.9496, Count: 2374}},
 		}, Frame{ID: "t-heat", Title: "Transitions", Desc: "Heatmap.", XLabel: "row probability", Unit: Percent})},
 		{"flow.svg", Flow(goldenFlow(), Frame{ID: "t-flow", Title: "Flow", Desc: "Flow.", Width: 960, Height: 360})},
 		{"funnel.svg", FunnelChart([]FunnelBar{
-			{Step: "view_item", Sessions: 1000, Abandonment: 0.6},
-			{Step: "add_to_cart", Sessions: 400, Abandonment: 0.5},
+			{Step: "product_view", Sessions: 1000, Abandonment: 0.6},
+			{Step: "basket_add", Sessions: 400, Abandonment: 0.5},
 			{Step: "checkout", Sessions: 200, Abandonment: 0.25},
-			{Step: "purchase", Sessions: 150},
+			{Step: "order", Sessions: 150},
 		}, Frame{ID: "t-funnel", Title: "Funnel", Desc: "Bars.", XLabel: "sessions", Unit: Count})},
 		{"control.svg", ControlChart(goldenControl(), Frame{ID: "t-control", Title: "Abandonment", Desc: "Control chart.", XLabel: "time (UTC)", YLabel: "rate", Width: 640})},
 		{"control-empty.svg", ControlChart(ControlData{}, Frame{ID: "t-control-empty", Title: "Abandonment", Desc: "Control chart."})},
@@ -118,7 +118,7 @@ func TestChartsEscapeNames(t *testing.T) {
 	}
 	var paths []FlowPath
 	for _, h := range hostile {
-		paths = append(paths, FlowPath{Steps: []string{h, "view_item"}, Count: 3})
+		paths = append(paths, FlowPath{Steps: []string{h, "product_view"}, Count: 3})
 	}
 	var steps []FunnelBar
 	for _, h := range hostile {
@@ -129,7 +129,7 @@ func TestChartsEscapeNames(t *testing.T) {
 		"line":    LineChart([]string{hostile[0], hostile[1]}, series, f),
 		"bars":    GroupedBars([]string{hostile[0], hostile[1]}, series, f),
 		"heatmap": Heatmap(hostile, hostile, cells, f),
-		"flow":    Flow(FlowData{Sessions: 10, Paths: paths, Start: "START", End: "END"}, f),
+		"flow":    Flow(FlowData{Sessions: 10, Paths: paths, Start: "@entry", End: "@exit"}, f),
 		"funnel":  FunnelChart(steps, f),
 		"control": ControlChart(goldenControl(), f),
 	}
@@ -248,7 +248,7 @@ func TestFlowLinksSumPaths(t *testing.T) {
 	wantLinks := map[string]int64{}
 	wantNodes := map[string]int64{}
 	for _, p := range d.Paths {
-		states := append(append([]string{"START"}, p.Steps...), "END")
+		states := append(append([]string{"@entry"}, p.Steps...), "@exit")
 		for i, s := range states {
 			wantNodes[exactInt(int64(i))+"|"+s] += p.Count
 			if i > 0 {
@@ -277,12 +277,12 @@ func TestFlowLinksSumPaths(t *testing.T) {
 			}
 		}
 	}
-	// The tooltip of START → view_item quotes the all-session probability.
+	// The tooltip of @entry → product_view quotes the all-session probability.
 	for _, n := range root.all(func(n *xnode) bool {
-		return n.attr["class"] == "link" && n.attr["data-from"] == "START" && n.attr["data-to"] == "view_item"
+		return n.attr["class"] == "link" && n.attr["data-from"] == "@entry" && n.attr["data-to"] == "product_view"
 	}) {
 		if !strings.Contains(n.title(), "90%") {
-			t.Errorf("START → view_item tooltip %q lacks the probability 90%%", n.title())
+			t.Errorf("@entry → product_view tooltip %q lacks the probability 90%%", n.title())
 		}
 	}
 }

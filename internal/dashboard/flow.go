@@ -27,7 +27,7 @@ type FlowData struct {
 	Sessions   int64      // all sessions in the window
 	Paths      []FlowPath // the main paths, most frequent first
 	Next       []FlowLink // all transitions (for the tooltips)
-	Start, End string     // the markers' names, e.g. START and END
+	Start, End string     // the markers' names, e.g. @entry and @exit
 }
 
 // flowNode is a node of the layered flow: one state at one step.

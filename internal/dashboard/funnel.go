@@ -2,7 +2,7 @@ package dashboard
 
 import "math"
 
-// FunnelBar is one step of a closed funnel.
+// FunnelBar is one step of an in-order funnel.
 type FunnelBar struct {
 	Step        string
 	Sessions    int64   // sessions that reached the step in order

@@ -271,14 +271,14 @@ func shiftSummary(a query.ShiftAnswer) string {
 
 func channelMatrixChart(a Answers) Chart {
 	c := Chart{ID: "channel-transitions", Heading: "Where journeys go next",
-		Lead: "For each state, the share of next steps going to each channel, to a conversion (CONVERSION) or to a journey ending without one (NULL). First-order transitions of the window's journeys."}
+		Lead: "For each state, the share of next steps going to each channel, to a conversion (@converted) or to a journey ending without one (@lost). First-order transitions of the window's journeys."}
 	if a.ChannelsErr != nil {
 		c.Err = errText(a.ChannelsErr)
 		return c
 	}
 	rows, cols, cells := TransitionGrid(a.Channels)
 	c.SVG = template.HTML(Heatmap(rows, cols, cells, Frame{ID: c.ID, Title: "Channel transition probabilities",
-		Desc:   "Heatmap: rows are the journey start and each channel, columns the next channel, CONVERSION or NULL; each cell is the row probability, darker is higher.",
+		Desc:   "Heatmap: rows are the journey start and each channel, columns the next channel, @converted or @lost; each cell is the row probability, darker is higher.",
 		XLabel: "row probability (transitions out of the row's state)", Unit: Percent}))
 	c.Summary = matrixSummary(a.Channels)
 	c.Table = Table{Caption: "Transition probabilities (count)", Head: append([]string{"from \\ to"}, cols...)}
@@ -446,8 +446,8 @@ func funnelSummary(a query.FunnelAnswer) string {
 	if len(a.Steps) > 1 {
 		s += fmt.Sprintf(" The biggest loss is after %s: %s left before %s.", a.Steps[worst].Step, Percent.format(a.Steps[worst].Abandonment), a.Steps[worst+1].Step)
 	}
-	if a.CartSessions > 0 {
-		s += fmt.Sprintf(" Cart abandonment: %s of %s cart sessions.", Percent.format(a.CartAbandonment), Count.format(float64(a.CartSessions)))
+	if a.BasketSessions > 0 {
+		s += fmt.Sprintf(" Basket abandonment: %s of %s basket sessions.", Percent.format(a.BasketAbandonment), Count.format(float64(a.BasketSessions)))
 	}
 	return s
 }

@@ -8,6 +8,7 @@ import (
 	"testing"
 	"time"
 
+	"github.com/touchledger/touchledger/internal/event"
 	"github.com/touchledger/touchledger/internal/pathstats"
 	"github.com/touchledger/touchledger/internal/query"
 )
@@ -41,31 +42,31 @@ func fixedAnswers() Answers {
 		{Model: "markov", Err: errors.New("markov: solver gave up")},
 	}
 	a.Channels = query.TransitionsAnswer{Level: "channel", Order: 1, Transitions: []query.Transition{
-		{From: "START", To: "search_ads", Count: 6, Probability: 0.6},
-		{From: "START", To: evil, Count: 4, Probability: 0.4},
-		{From: evil, To: "CONVERSION", Count: 3, Probability: 0.75},
+		{From: "@entry", To: "search_ads", Count: 6, Probability: 0.6},
+		{From: "@entry", To: evil, Count: 4, Probability: 0.4},
+		{From: evil, To: "@converted", Count: 3, Probability: 0.75},
 		{From: evil, To: "search_ads", Count: 1, Probability: 0.25},
-		{From: "search_ads", To: "NULL", Count: 5, Probability: 5.0 / 7},
-		{From: "search_ads", To: "CONVERSION", Count: 2, Probability: 2.0 / 7},
+		{From: "search_ads", To: "@lost", Count: 5, Probability: 5.0 / 7},
+		{From: "search_ads", To: "@converted", Count: 2, Probability: 2.0 / 7},
 	}}
 	a.Actions = query.TransitionsAnswer{Level: "action", Transitions: []query.Transition{
-		{From: "START", To: "view_item", Count: 90, Probability: 0.9},
-		{From: "START", To: "add_to_cart", Count: 10, Probability: 0.1},
-		{From: "view_item", To: "END", Count: 60, Probability: 0.5},
-		{From: "view_item", To: "add_to_cart", Count: 60, Probability: 0.5},
-		{From: "add_to_cart", To: "END", Count: 70, Probability: 1},
+		{From: "@entry", To: "product_view", Count: 90, Probability: 0.9},
+		{From: "@entry", To: "basket_add", Count: 10, Probability: 0.1},
+		{From: "product_view", To: "@exit", Count: 60, Probability: 0.5},
+		{From: "product_view", To: "basket_add", Count: 60, Probability: 0.5},
+		{From: "basket_add", To: "@exit", Count: 70, Probability: 1},
 	}}
 	a.Paths = query.PathsAnswer{Level: "action", Total: 100, Paths: []query.PathStat{
-		{Path: "view_item", Count: 60, Share: 0.6},
-		{Path: "view_item" + pathstats.PathSeparator + "add_to_cart", Count: 30, Share: 0.3, Conversions: 3, ConversionRate: 0.1},
-		{Path: "add_to_cart", Count: 10, Share: 0.1},
+		{Path: "product_view", Count: 60, Share: 0.6},
+		{Path: "product_view" + pathstats.PathSeparator + "basket_add", Count: 30, Share: 0.3, Conversions: 3, ConversionRate: 0.1},
+		{Path: "basket_add", Count: 10, Share: 0.1},
 	}}
 	a.Funnel = query.FunnelAnswer{Sessions: 100, Coverage: query.Coverage{From: time.Date(2026, 9, 4, 18, 0, 0, 0, time.UTC), To: time.Date(2026, 10, 3, 19, 0, 0, 0, time.UTC)}, Steps: []query.FunnelStep{
-		{Step: "view_item", Sessions: 100, Abandonment: 0.6},
-		{Step: "add_to_cart", Sessions: 40, Abandonment: 0.75},
+		{Step: "product_view", Sessions: 100, Abandonment: 0.6},
+		{Step: "basket_add", Sessions: 40, Abandonment: 0.75},
 		{Step: "checkout", Sessions: 10, Abandonment: 0.3},
-		{Step: "purchase", Sessions: 7},
-	}, CartSessions: 40, CartAbandonment: 33.0 / 40, OverallConversion: 0.07}
+		{Step: "order", Sessions: 7},
+	}, BasketSessions: 40, BasketAbandonment: 33.0 / 40, OverallConversion: 0.07}
 	a.Alerts = query.AlertsAnswer{Name: "checkout_abandonment", Interval: (15 * time.Minute).String()}
 	t0 := time.Date(2026, 10, 3, 12, 0, 0, 0, time.UTC)
 	for i, r := range []float64{0, 0.3, 0.25, 0.35, 0.8, 0.9, 0.3, 0.2, 0.3} {
@@ -188,7 +189,7 @@ func checkPage(t *testing.T, page []byte, a Answers) {
 	// Action flow: links are sums of the main paths.
 	links := map[string]int64{}
 	for _, p := range a.Paths.Paths {
-		states := append(append([]string{query.ActionStart}, strings.Split(p.Path, pathstats.PathSeparator)...), query.ActionEnd)
+		states := append(append([]string{event.StateEntry}, strings.Split(p.Path, pathstats.PathSeparator)...), event.StateExit)
 		for i := 1; i < len(states); i++ {
 			links[exactInt(int64(i-1))+"|"+states[i-1]+"|"+states[i]] += p.Count
 		}
@@ -319,8 +320,8 @@ func TestPageShowsErrorsAndSummaries(t *testing.T) {
 		"The largest move since 2026-10-02: &lt;script&gt;alert(&#34;x&#34;)&lt;/script&gt; went from 25% to 50% of the day&#39;s credit.",
 		"Journeys most often start with search_ads (60%).",
 		"The models disagree most about",
-		"The most common session is &#34;view_item&#34;: 60 sessions (60% of 100)",
-		"100 sessions reached view_item; 7% of them went all the way to purchase. The biggest loss is after add_to_cart: 75% left before checkout.",
+		"The most common session is &#34;product_view&#34;: 60 sessions (60% of 100)",
+		"100 sessions reached product_view; 7% of them went all the way to order. The biggest loss is after basket_add: 75% left before checkout.",
 		"One alert in this window. The latest opened Oct 3 13:00 UTC and closed Oct 3 13:30 UTC",
 		"<th scope=\"row\">2026-10-02</th><td>2.5</td><td>3</td><td>4.5</td>",
 	} {

@@ -232,10 +232,16 @@ func (d *Decoder) event(b []byte) (Event, error) {
 		if rej = d.checkName(fieldChannel, raw[fieldChannel], d.lim.MaxName); rej != nil {
 			return Event{}, rej
 		}
+		if rej = checkUnreserved(fieldChannel, raw[fieldChannel]); rej != nil {
+			return Event{}, rej
+		}
 		if raw[fieldCampaign], rej = d.optionalString(b, fieldCampaign); rej != nil {
 			return Event{}, rej
 		}
 		if rej = d.checkName(fieldCampaign, raw[fieldCampaign], d.lim.MaxName); rej != nil {
+			return Event{}, rej
+		}
+		if rej = checkUnreserved(fieldCampaign, raw[fieldCampaign]); rej != nil {
 			return Event{}, rej
 		}
 		interaction, rej := d.optionalString(b, fieldInteraction)
@@ -256,6 +262,9 @@ func (d *Decoder) event(b []byte) (Event, error) {
 			return Event{}, rej
 		}
 		if rej = d.checkName(fieldAction, raw[fieldAction], d.lim.MaxName); rej != nil {
+			return Event{}, rej
+		}
+		if rej = checkUnreserved(fieldAction, raw[fieldAction]); rej != nil {
 			return Event{}, rej
 		}
 		if ev.Value, ev.HasValue, rej = d.value(b); rej != nil {
@@ -385,6 +394,16 @@ func (d *Decoder) checkName(f field, s []byte, limit int) *RejectError {
 		if c < 0x20 || c == 0x7f {
 			return rejectField(ReasonBadField, f, fmt.Sprintf("holds control character 0x%02x", c))
 		}
+	}
+	return nil
+}
+
+// checkUnreserved rejects a name that begins with ReservedPrefix: those
+// names are the states the tool adds (StateEntry, StateConverted, ...).
+func checkUnreserved(f field, s []byte) *RejectError {
+	if len(s) > 0 && s[0] == ReservedPrefix[0] {
+		return rejectField(ReasonBadField, f, fmt.Sprintf("begins with %q, which is reserved for the states touchledger adds (%s, %s, %s, %s)",
+			ReservedPrefix, StateEntry, StateConverted, StateLost, StateExit))
 	}
 	return nil
 }

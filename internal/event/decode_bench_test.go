@@ -9,14 +9,14 @@ import (
 
 // benchPayloads builds n realistic payloads from a fixed seed: about a third
 // touches (a fifth of them views, most with a campaign), the rest shop actions
-// (view_item, add_to_cart, checkout, purchase with a value), times with
+// (product_view, basket_add, checkout, order with a value), times with
 // milliseconds, some with a zone offset, some with extra fields the decoder
 // ignores. The shop and its channels are invented.
 func benchPayloads(n int, seed uint64) [][]byte {
 	rng := rand.New(rand.NewPCG(seed, seed^0x9e3779b97f4a7c15))
 	channels := []string{"search_ads", "social_feed", "newsletter", "affiliate", "display", "video", "direct", "price_compare"}
 	campaigns := []string{"spring_sale", "brand", "retarget_7d", "new_arrivals", ""}
-	actions := []string{"view_item", "view_item", "view_item", "add_to_cart", "add_to_cart", "checkout", "purchase"}
+	actions := []string{"product_view", "product_view", "product_view", "basket_add", "basket_add", "checkout", "order"}
 	zones := []string{"Z", "Z", "Z", "+01:00", "-05:00"}
 	start := time.Date(2026, 3, 1, 0, 0, 0, 0, time.UTC)
 	out := make([][]byte, n)
@@ -48,7 +48,7 @@ func benchPayloads(n int, seed uint64) [][]byte {
 			if rng.IntN(4) == 0 {
 				extra = fmt.Sprintf(`,"page":"/item/%d","agent":{"device":"mobile","app":false}`, rng.IntN(5000))
 			}
-			if action == "purchase" {
+			if action == "order" {
 				value := float64(rng.IntN(50_000)) / 100
 				payload = fmt.Sprintf(`{"id":%q,"user":%q,"time":%q,"kind":"action","action":%q,"value":%.2f,"currency":"EUR"%s}`,
 					id, user, stamp, action, value, extra)

@@ -31,14 +31,14 @@ func TestDecodeAccepts(t *testing.T) {
 		return ev
 	}
 	action := func(mod func(*Event)) Event {
-		ev := Event{ID: "e2", User: "u1", Time: at, Kind: Action, Action: "purchase"}
+		ev := Event{ID: "e2", User: "u1", Time: at, Kind: Action, Action: "order"}
 		if mod != nil {
 			mod(&ev)
 		}
 		return ev
 	}
 	const touchHead = `{"id":"e1","user":"u1","kind":"touch","channel":"newsletter",`
-	const actionHead = `{"id":"e2","user":"u1","time":"2026-03-10T23:40:00Z","kind":"action","action":"purchase"`
+	const actionHead = `{"id":"e2","user":"u1","time":"2026-03-10T23:40:00Z","kind":"action","action":"order"`
 	tests := []struct {
 		name     string
 		currency string // the decoder's
@@ -49,6 +49,8 @@ func TestDecodeAccepts(t *testing.T) {
 		{"touch explicit click", "", touchHead + `"time":"2026-03-10T23:40:00Z","interaction":"click"}`, touch(nil)},
 		{"touch view with campaign", "", touchHead + `"time":"2026-03-10T23:40:00Z","campaign":"spring","interaction":"view"}`,
 			touch(func(e *Event) { e.Campaign = "spring"; e.Interaction = View })},
+		{"@ inside a campaign is not reserved", "", touchHead + `"time":"2026-03-10T23:40:00Z","campaign":"spring@shop"}`,
+			touch(func(e *Event) { e.Campaign = "spring@shop" })},
 		{"touch null campaign and interaction", "", touchHead + `"time":"2026-03-10T23:40:00Z","campaign":null,"interaction":null}`, touch(nil)},
 		{"touch empty interaction means click", "", touchHead + `"time":"2026-03-10T23:40:00Z","interaction":""}`, touch(nil)},
 		{"offset 23:59", "", touchHead + `"time":"2026-03-11T23:39:00+23:59"}`, touch(nil)},
@@ -94,13 +96,13 @@ func TestDecodeAccepts(t *testing.T) {
 		{"value just below the limit rounds up to it", "", actionHead + `,"value":999999999999.9999995}`, action(func(e *Event) { e.Value = 1_000_000_000_000_000_000; e.HasValue = true })},
 		{"action with currency", "EUR", actionHead + `,"value":10,"currency":"EUR"}`, action(func(e *Event) { e.Value = 10_000_000; e.HasValue = true; e.Currency = "EUR" })},
 		{"action ignores touch fields", "", actionHead + `,"channel":5,"interaction":"hover"}`, action(nil)},
-		{"id at its limit", "", `{"id":"` + strings.Repeat("i", 128) + `","user":"u1","time":"2026-03-10T23:40:00Z","kind":"action","action":"purchase"}`,
+		{"id at its limit", "", `{"id":"` + strings.Repeat("i", 128) + `","user":"u1","time":"2026-03-10T23:40:00Z","kind":"action","action":"order"}`,
 			action(func(e *Event) { e.ID = strings.Repeat("i", 128) })},
-		{"user at its limit", "", `{"id":"e2","user":"` + strings.Repeat("u", 256) + `","time":"2026-03-10T23:40:00Z","kind":"action","action":"purchase"}`,
+		{"user at its limit", "", `{"id":"e2","user":"` + strings.Repeat("u", 256) + `","time":"2026-03-10T23:40:00Z","kind":"action","action":"order"}`,
 			action(func(e *Event) { e.User = strings.Repeat("u", 256) })},
 		{"action at its limit", "", `{"id":"e2","user":"u1","time":"2026-03-10T23:40:00Z","kind":"action","action":"` + strings.Repeat("a", 128) + `"}`,
 			action(func(e *Event) { e.Action = strings.Repeat("a", 128) })},
-		{"multibyte user at its limit", "", `{"id":"e2","user":"` + strings.Repeat("é", 128) + `","time":"2026-03-10T23:40:00Z","kind":"action","action":"purchase"}`,
+		{"multibyte user at its limit", "", `{"id":"e2","user":"` + strings.Repeat("é", 128) + `","time":"2026-03-10T23:40:00Z","kind":"action","action":"order"}`,
 			action(func(e *Event) { e.User = strings.Repeat("é", 128) })},
 	}
 	for _, tt := range tests {
@@ -124,9 +126,9 @@ func TestDecodeRejects(t *testing.T) {
 	const (
 		okTime  = `"time":"2026-03-10T23:40:00Z"`
 		touch   = `{"id":"e1","user":"u1",` + okTime + `,"kind":"touch","channel":"newsletter"`
-		action  = `{"id":"e2","user":"u1",` + okTime + `,"kind":"action","action":"purchase"`
+		action  = `{"id":"e2","user":"u1",` + okTime + `,"kind":"action","action":"order"`
 		idUser  = `{"id":"e1","user":"u1",`
-		kindAct = `"kind":"action","action":"purchase"}`
+		kindAct = `"kind":"action","action":"order"}`
 	)
 	tests := []struct {
 		name      string
@@ -177,8 +179,8 @@ func TestDecodeRejects(t *testing.T) {
 		{"user empty", DefaultLimits(), "", `{"id":"e1","user":"",` + okTime + `,` + kindAct, ReasonMissingField, "user"},
 		{"time absent", DefaultLimits(), "", idUser + kindAct, ReasonMissingField, "time"},
 		{"time null", DefaultLimits(), "", idUser + `"time":null,` + kindAct, ReasonMissingField, "time"},
-		{"kind absent", DefaultLimits(), "", idUser + okTime + `,"action":"purchase"}`, ReasonMissingField, "kind"},
-		{"kind empty", DefaultLimits(), "", idUser + okTime + `,"kind":"","action":"purchase"}`, ReasonMissingField, "kind"},
+		{"kind absent", DefaultLimits(), "", idUser + okTime + `,"action":"order"}`, ReasonMissingField, "kind"},
+		{"kind empty", DefaultLimits(), "", idUser + okTime + `,"kind":"","action":"order"}`, ReasonMissingField, "kind"},
 		{"channel absent", DefaultLimits(), "", idUser + okTime + `,"kind":"touch"}`, ReasonMissingField, "channel"},
 		{"channel empty", DefaultLimits(), "", idUser + okTime + `,"kind":"touch","channel":""}`, ReasonMissingField, "channel"},
 		{"action absent", DefaultLimits(), "", idUser + okTime + `,"kind":"action","value":5}`, ReasonMissingField, "action"},
@@ -210,6 +212,13 @@ func TestDecodeRejects(t *testing.T) {
 		{"newline in campaign", DefaultLimits(), "", touch + `,"campaign":"a\nb"}`, ReasonBadField, "campaign"},
 		{"raw DEL in action", DefaultLimits(), "", idUser + okTime + ",\"kind\":\"action\",\"action\":\"buy\x7f\"}", ReasonBadField, "action"},
 		{"escaped DEL in currency", DefaultLimits(), "", action + `,"currency":"EU\u007f"}`, ReasonBadField, "currency"},
+		// Names beginning with "@" are reserved for the states the tool adds
+		// (event.StateEntry, ...); an escaped '@' (\u0040) is the same name.
+		{"channel is a reserved state", DefaultLimits(), "", idUser + okTime + `,"kind":"touch","channel":"@entry"}`, ReasonBadField, "channel"},
+		{"channel begins with @", DefaultLimits(), "", idUser + okTime + `,"kind":"touch","channel":"@social"}`, ReasonBadField, "channel"},
+		{"channel begins with escaped @", DefaultLimits(), "", idUser + okTime + `,"kind":"touch","channel":"\u0040lost"}`, ReasonBadField, "channel"},
+		{"campaign begins with @", DefaultLimits(), "", touch + `,"campaign":"@converted"}`, ReasonBadField, "campaign"},
+		{"action is a reserved state", DefaultLimits(), "", idUser + okTime + `,"kind":"action","action":"@exit"}`, ReasonBadField, "action"},
 
 		{"time without zone", DefaultLimits(), "", idUser + `"time":"2026-03-10T23:40:00",` + kindAct, ReasonBadTime, "time"},
 		{"time with space separator", DefaultLimits(), "", idUser + `"time":"2026-03-10 23:40:00Z",` + kindAct, ReasonBadTime, "time"},
@@ -274,7 +283,7 @@ func TestDecodeRejects(t *testing.T) {
 // TestDecodeLimitsBoundary checks that a payload of exactly MaxPayload bytes
 // is accepted and one byte more is too_large.
 func TestDecodeLimitsBoundary(t *testing.T) {
-	base := `{"id":"e1","user":"u1","time":"2026-03-10T23:40:00Z","kind":"action","action":"purchase","pad":""}`
+	base := `{"id":"e1","user":"u1","time":"2026-03-10T23:40:00Z","kind":"action","action":"order","pad":""}`
 	lim := DefaultLimits()
 	atLimit := base[:len(base)-2] + strings.Repeat("x", lim.MaxPayload-len(base)) + `"}`
 	tests := []struct {

@@ -50,7 +50,10 @@
 //  8. touch: channel (required), campaign, interaction ("click" or "view",
 //     else bad_kind); action: action (required), value (not a number:
 //     bad_field; negative or above 1e12: bad_value, so 1e400 is bad_value).
-//     Length and control-character rules as in 5.
+//     Length and control-character rules as in 5. A channel, campaign or
+//     action beginning with "@" is bad_field: names with that prefix are
+//     reserved for the states touchledger adds (@entry, @converted, @lost,
+//     @exit), so a transition or path never confuses a name with a state.
 //  9. currency: a string within the name limit, free of control characters;
 //     when the decoder has a currency and the event names a different one
 //     (case-sensitive): currency

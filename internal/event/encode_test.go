@@ -11,9 +11,9 @@ func TestAppendJSONRoundTrip(t *testing.T) {
 	for _, e := range []Event{
 		{ID: "a1", User: "p1-ab", Time: ts, Kind: Touch, Channel: "mail", Campaign: "spring \"sale\"", Interaction: View},
 		{ID: "a2", User: "u", Time: ts, Kind: Touch, Channel: "search"},
-		{ID: "a3", User: "u", Time: ts, Kind: Action, Action: "purchase", Value: 12_000_005, HasValue: true, Currency: "EUR"},
-		{ID: "a4", User: "u", Time: ts, Kind: Action, Action: "view_item"},
-		{ID: "a5", User: "u", Time: ts, Kind: Action, Action: "purchase", Value: 0, HasValue: true},
+		{ID: "a3", User: "u", Time: ts, Kind: Action, Action: "order", Value: 12_000_005, HasValue: true, Currency: "EUR"},
+		{ID: "a4", User: "u", Time: ts, Kind: Action, Action: "product_view"},
+		{ID: "a5", User: "u", Time: ts, Kind: Action, Action: "order", Value: 0, HasValue: true},
 	} {
 		d := NewDecoder(DefaultLimits(), "")
 		got, err := d.Decode(AppendJSON(nil, &e))

@@ -2,6 +2,7 @@ package event
 
 import (
 	"fmt"
+	"strings"
 	"time"
 )
 
@@ -11,9 +12,27 @@ type Kind uint8
 const (
 	// Touch is a marketing touchpoint: an ad click or view, an e-mail click, ...
 	Touch Kind = 1
-	// Action is a clickstream action on the shop: view_item, add_to_cart, ...
+	// Action is a clickstream action on the shop: product_view, basket_add, ...
 	Action Kind = 2
 )
+
+// Reserved names. Journeys and sessions gain states that no event names:
+// every journey runs from StateEntry through its channels to StateConverted
+// or StateLost, every session from StateEntry through its actions to
+// StateExit. Those states are written among channel and action names (in
+// transitions and paths), so names beginning with ReservedPrefix belong to
+// them alone: an event whose channel, campaign or action begins with it is
+// rejected with ReasonBadField.
+const (
+	ReservedPrefix = "@"
+	StateEntry     = "@entry"     // before a journey's first touch or a session's first action
+	StateConverted = "@converted" // a journey's end in a conversion
+	StateLost      = "@lost"      // a journey's end without one (timed out, or still open)
+	StateExit      = "@exit"      // a session's end
+)
+
+// IsReserved reports whether name begins with ReservedPrefix.
+func IsReserved(name string) bool { return strings.HasPrefix(name, ReservedPrefix) }
 
 func (k Kind) String() string {
 	switch k {
@@ -71,7 +90,7 @@ type Reason string
 const (
 	ReasonBadJSON      Reason = "bad_json"      // not a single JSON object, or invalid UTF-8
 	ReasonMissingField Reason = "missing_field" // a required field is absent or empty
-	ReasonBadField     Reason = "bad_field"     // a field has the wrong type, is too long, or holds control characters
+	ReasonBadField     Reason = "bad_field"     // a field has the wrong type, is too long, holds control characters, or a name begins with the reserved "@"
 	ReasonBadTime      Reason = "bad_time"      // time is not RFC 3339 with a zone
 	ReasonBadKind      Reason = "bad_kind"      // kind is not "touch"/"action", or interaction not "click"/"view"
 	ReasonBadValue     Reason = "bad_value"     // value is negative, not finite, or too large

@@ -226,8 +226,8 @@ func reencode(t *testing.T, ev Event) []byte {
 // every accepted form of time.
 func TestReencodeRoundTrip(t *testing.T) {
 	tests := []string{
-		`{"id":"a","user":"u","time":"2026-03-10T23:40:00.000000001+05:45","kind":"action","action":"purchase","value":4478354144.302263}`,
-		`{"id":"a","user":"u","time":"1677-09-21T00:12:43.145224192Z","kind":"action","action":"purchase","value":999999999999.999999}`,
+		`{"id":"a","user":"u","time":"2026-03-10T23:40:00.000000001+05:45","kind":"action","action":"order","value":4478354144.302263}`,
+		`{"id":"a","user":"u","time":"1677-09-21T00:12:43.145224192Z","kind":"action","action":"order","value":999999999999.999999}`,
 		`{"id":"a","user":"u","time":"2262-04-11T23:47:16.854775807Z","kind":"touch","channel":"c","interaction":"view","currency":"EUR"}`,
 		`{"id":"<&>","user":"\u2028","time":"2026-03-10T23:40:00-12:00","kind":"touch","channel":"\ud83d\ude00","campaign":"\"q\""}`,
 	}

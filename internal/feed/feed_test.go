@@ -168,9 +168,9 @@ func (h *harness) waitFor(what string, cond func(pipeline.Status) bool) pipeline
 }
 
 // spikeSessions builds the sessions of internal/pipeline's
-// TestAbandonmentSpikeOpensAlert: 400 cart sessions per 5-minute interval,
-// the first abandons[i] of them abandoning (view_item, add_to_cart and no
-// purchase), interval i placed at slot[i] after base.
+// TestAbandonmentSpikeOpensAlert: 400 basket sessions per 5-minute interval,
+// the first abandons[i] of them abandoning (product_view, basket_add and no
+// order), interval i placed at slot[i] after base.
 func spikeSessions(base time.Time, abandons, slots []int) []string {
 	var lines []string
 	for i, ab := range abandons {
@@ -182,11 +182,11 @@ func spikeSessions(base time.Time, abandons, slots []int) []string {
 				lines = append(lines, fmt.Sprintf(`{"id":"%s-%s","user":"%s","time":"%s","kind":"action","action":"%s"}`,
 					u, action, u, at.Add(d).Format(time.RFC3339Nano), action))
 			}
-			emit(0, "view_item")
-			emit(time.Second, "add_to_cart")
+			emit(0, "product_view")
+			emit(time.Second, "basket_add")
 			if s >= ab {
 				emit(2*time.Second, "checkout")
-				emit(3*time.Second, "purchase")
+				emit(3*time.Second, "order")
 			}
 		}
 	}
@@ -206,7 +206,7 @@ func spikeSessions(base time.Time, abandons, slots []int) []string {
 func TestAlertFeed(t *testing.T) {
 	cfg := config.Default()
 	cfg.Alert.Target = 0.10
-	cfg.Alert.Step = "add_to_cart" // cart sessions that do not buy
+	cfg.Alert.Step = "basket_add" // basket sessions that do not buy
 	cfg.SessionGap = config.Duration(time.Minute)
 	cfg.Lateness = config.Duration(10 * time.Second) // a session's lines trail the next ones by up to 3 s
 	cfg.Store.CommitInterval = config.Duration(100 * time.Millisecond)
@@ -236,7 +236,7 @@ func TestAlertFeed(t *testing.T) {
 	opened := nextAlert(t, sub, 20*time.Second)
 	wantOpened := base.Add(35 * time.Minute) // slot 7, §5's sixth spike interval
 	if opened.Event != EventOpened || !opened.Opened.Equal(wantOpened) || !opened.Open || !opened.Closed.IsZero() ||
-		opened.Rate != 0.16 || opened.Baseline != 0.10 || opened.Partitions != "0-15" || opened.Name != "add_to_cart_abandonment" {
+		opened.Rate != 0.16 || opened.Baseline != 0.10 || opened.Partitions != "0-15" || opened.Name != "basket_add_abandonment" {
 		t.Errorf("opened message %+v, want opened at %s with rate 0.16, baseline 0.10", opened, wantOpened)
 	}
 	// §5: UCL_6 = 0.114475 when the chart starts at the spike; two quiet
@@ -298,8 +298,8 @@ func nextAlert(t *testing.T, sub *nats.Subscription, timeout time.Duration) Aler
 	if err := json.Unmarshal(m.Data, &a); err != nil {
 		t.Fatal(err)
 	}
-	if want := fmt.Sprintf("0-15-add_to_cart_abandonment-%d-%s", a.Opened.Unix(), a.Event); m.Header.Get(HeaderMsgID) != want ||
-		m.Subject != "tl.alert.add_to_cart_abandonment" {
+	if want := fmt.Sprintf("0-15-basket_add_abandonment-%d-%s", a.Opened.Unix(), a.Event); m.Header.Get(HeaderMsgID) != want ||
+		m.Subject != "tl.alert.basket_add_abandonment" {
 		t.Errorf("subject %s, message id %q, want %q", m.Subject, m.Header.Get(HeaderMsgID), want)
 	}
 	return a
@@ -312,7 +312,7 @@ func nextAlert(t *testing.T, sub *nats.Subscription, timeout time.Duration) Aler
 func TestAlertFeedStartRule(t *testing.T) {
 	cfg := config.Default()
 	cfg.Alert.Target = 0.10
-	cfg.Alert.Step = "add_to_cart"
+	cfg.Alert.Step = "basket_add"
 	cfg.SessionGap = config.Duration(time.Minute)
 	cfg.Lateness = config.Duration(10 * time.Second) // a session's lines trail the next ones by up to 3 s
 	cfg.Store.CommitInterval = config.Duration(100 * time.Millisecond)

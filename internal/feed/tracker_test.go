@@ -131,8 +131,8 @@ func TestBaseline(t *testing.T) {
 
 func TestAlertSubject(t *testing.T) {
 	tests := []struct{ prefix, name, want string }{
-		{"tl", "add_to_cart_abandonment", "tl.alert.add_to_cart_abandonment"},
-		{"shop.tl", "add to.cart*>_abandonment", "shop.tl.alert.add_to_cart___abandonment"},
+		{"tl", "basket_add_abandonment", "tl.alert.basket_add_abandonment"},
+		{"shop.tl", "basket add.now*>_abandonment", "shop.tl.alert.basket_add_now___abandonment"},
 	}
 	for _, tt := range tests {
 		if got := AlertSubject(tt.prefix, tt.name); got != tt.want {

@@ -61,7 +61,7 @@
 // s a multiple of Interval and s+Interval ≤ the committed watermark (every
 // event before the watermark has been applied). abandonment(step i) =
 // 1 − reached(i+1)/reached(i) over sessions ending in that interval, the
-// closed-funnel drop-off of query.Funnel (common practice). Steps no session
+// in-order funnel drop-off of query.Funnel (common practice). Steps no session
 // reached, and the last step, are left out.
 //
 // Commit latency: the stream layer calls ObserveCommit from

@@ -143,7 +143,7 @@ func TestCreditedGaugesEqualCreditAnswer(t *testing.T) {
 	start := (f.latest().Add(time.Nanosecond-metrics.DefaultWindow).Unix() / 300) * 300
 	var purchases int64
 	for _, e := range f.events {
-		if e.Kind == "action" && e.Action == "purchase" && e.Time.Unix() >= start {
+		if e.Kind == "action" && e.Action == "order" && e.Time.Unix() >= start {
 			purchases++
 		}
 	}
@@ -296,7 +296,7 @@ func TestOpenSessionsAndJourneys(t *testing.T) {
 				touchesSinceConversion++
 				continue
 			}
-			if e.Action == "purchase" {
+			if e.Action == "order" {
 				touchesSinceConversion = 0
 			}
 			if !last.IsZero() && e.Time.Sub(last) >= metrics.DefaultSessionGap && last.Unix() >= start {

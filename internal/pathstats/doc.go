@@ -1,5 +1,5 @@
 // Package pathstats holds the path and funnel helpers of journey analytics:
-// closed-funnel depth and step abandonment, path keys for the most frequent
+// in-order funnel depth and step abandonment, path keys for the most frequent
 // session and journey paths, and a bounded, mergeable heavy-hitter summary
 // (TopK) that counts those paths in memory that does not grow with the
 // number of distinct paths.
@@ -9,18 +9,18 @@
 // # Funnel
 //
 // FunnelDepth(actions, steps) is the number of the configured steps a
-// session reached in order (a closed funnel): step i counts only if steps
+// session reached in order (an in-order funnel): step i counts only if steps
 // 0..i−1 were reached at earlier actions of the session; other actions in
 // between are ignored. AddDepth turns depths into per-step counts
 // n_1 >= n_2 >= ... >= n_k (a session of depth d adds one to n_1..n_d).
-// Step abandonment is a_i = 1 − n_{i+1}/n_i, cart abandonment is
-// 1 − purchases/carts (Abandonment; definitions are common practice, no
+// Step abandonment is a_i = 1 − n_{i+1}/n_i, basket abandonment is
+// 1 − converted/basket sessions (Abandonment; definitions are common practice, no
 // source). Example: 1000 → 300 → 150 → 120 → 90 gives 7/10, 1/2, 1/5, 1/4.
 //
 // # Paths
 //
 // CollapseRepeats drops consecutive duplicates (A A B A → A B A). PathKey
-// collapses a path and joins it with " > "; a collapsed path longer than
+// collapses a path and joins it with " → "; a collapsed path longer than
 // maxLen keeps its first maxLen−1 elements, then "…", then its last element.
 //
 // # TopK: Space-Saving (Metwally, Agrawal & El Abbadi 2005)

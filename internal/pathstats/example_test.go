@@ -24,10 +24,10 @@ func ExampleTopK() {
 }
 
 func ExamplePathKey() {
-	session := []string{"home", "view_item", "view_item", "add_to_cart", "view_item", "begin_checkout", "purchase"}
+	session := []string{"home", "product_view", "product_view", "basket_add", "product_view", "checkout", "order"}
 	fmt.Println(pathstats.PathKey(session, 0))
 	fmt.Println(pathstats.PathKey(session, 4))
 	// Output:
-	// home > view_item > add_to_cart > view_item > begin_checkout > purchase
-	// home > view_item > add_to_cart > … > purchase
+	// home → product_view → basket_add → product_view → checkout → order
+	// home → product_view → basket_add → … → order
 }

@@ -1,7 +1,7 @@
 package pathstats
 
 // FunnelDepth returns how many of the ordered steps a session reached in
-// order (a closed funnel): step i counts only if steps 0..i−1 were reached at
+// order (an in-order funnel): step i counts only if steps 0..i−1 were reached at
 // earlier actions of the same session. 0 means the session never reached the
 // first step. Actions that are not the next step are ignored, so other
 // actions may come between steps; a step seen before its predecessors does
@@ -23,7 +23,7 @@ func FunnelDepth(actions []string, steps []string) int {
 }
 
 // AddDepth counts one session that reached depth steps into reached, the
-// per-step session counts of a closed funnel: reached[i]++ for every
+// per-step session counts of an in-order funnel: reached[i]++ for every
 // i < depth. depth beyond len(reached) counts every step.
 func AddDepth(reached []int64, depth int) {
 	for i := range min(depth, len(reached)) {
@@ -34,8 +34,8 @@ func AddDepth(reached []int64, depth int) {
 // Abandonment returns the share of the from sessions that did not go on to
 // the next stage, 1 − to/from, computed as (from − to)/from so that it is the
 // correctly rounded value of the exact fraction. It is 0 when from <= 0
-// (nobody to abandon). Step abandonment is Abandonment(n_i, n_{i+1}); cart
-// abandonment is Abandonment(carts, purchases).
+// (nobody to abandon). Step abandonment is Abandonment(n_i, n_{i+1}); basket
+// abandonment is Abandonment(basket sessions, their orders).
 func Abandonment(from, to int64) float64 {
 	if from <= 0 {
 		return 0

@@ -6,7 +6,7 @@ import (
 	"testing"
 )
 
-var shopSteps = []string{"view_item", "add_to_cart", "begin_checkout", "add_payment", "purchase"}
+var shopSteps = []string{"product_view", "basket_add", "checkout", "payment", "order"}
 
 func TestFunnelDepth(t *testing.T) {
 	tests := []struct {
@@ -15,16 +15,16 @@ func TestFunnelDepth(t *testing.T) {
 		steps   []string
 		want    int
 	}{
-		{"all in order", []string{"view_item", "add_to_cart", "begin_checkout", "add_payment", "purchase"}, shopSteps, 5},
-		{"other actions between", []string{"home", "view_item", "search", "view_item", "add_to_cart", "home", "begin_checkout"}, shopSteps, 3},
-		{"first step missing", []string{"add_to_cart", "begin_checkout", "purchase"}, shopSteps, 0},
-		{"step before its predecessor does not count", []string{"add_to_cart", "view_item", "begin_checkout"}, shopSteps, 1},
-		{"later repeat counts", []string{"add_to_cart", "view_item", "add_to_cart"}, shopSteps, 2},
-		{"skipping a step stops the funnel", []string{"view_item", "begin_checkout", "add_payment", "purchase"}, shopSteps, 1},
-		{"repeated step needs two actions", []string{"view_item", "add_to_cart"}, []string{"view_item", "view_item", "add_to_cart"}, 1},
-		{"repeated step reached", []string{"view_item", "view_item", "add_to_cart"}, []string{"view_item", "view_item", "add_to_cart"}, 3},
+		{"all in order", []string{"product_view", "basket_add", "checkout", "payment", "order"}, shopSteps, 5},
+		{"other actions between", []string{"home", "product_view", "search", "product_view", "basket_add", "home", "checkout"}, shopSteps, 3},
+		{"first step missing", []string{"basket_add", "checkout", "order"}, shopSteps, 0},
+		{"step before its predecessor does not count", []string{"basket_add", "product_view", "checkout"}, shopSteps, 1},
+		{"later repeat counts", []string{"basket_add", "product_view", "basket_add"}, shopSteps, 2},
+		{"skipping a step stops the funnel", []string{"product_view", "checkout", "payment", "order"}, shopSteps, 1},
+		{"repeated step needs two actions", []string{"product_view", "basket_add"}, []string{"product_view", "product_view", "basket_add"}, 1},
+		{"repeated step reached", []string{"product_view", "product_view", "basket_add"}, []string{"product_view", "product_view", "basket_add"}, 3},
 		{"no actions", nil, shopSteps, 0},
-		{"no steps", []string{"view_item"}, nil, 0},
+		{"no steps", []string{"product_view"}, nil, 0},
 	}
 	for _, tt := range tests {
 		t.Run(tt.name, func(t *testing.T) {
@@ -77,13 +77,13 @@ func TestFunnelDepthMatchesSubsequenceSearch(t *testing.T) {
 func TestFunnelExample(t *testing.T) {
 	// check-values.md §5 funnel example [computed]: counts 1000 → 300 → 150 →
 	// 120 → 90 give step abandonment 7/10, 1/2, 1/5, 1/4, overall conversion
-	// 9/100 and cart abandonment 1 − 90/300 = 7/10. The sessions are built so
+	// 9/100 and basket abandonment 1 − 90/300 = 7/10. The sessions are built so
 	// that 700 stop after step 1, 150 after 2, 30 after 3, 30 after 4 and 90
 	// finish; each carries unrelated actions and an out-of-order step.
 	var sessions [][]string
 	for _, group := range []struct{ depth, sessions int }{{1, 700}, {2, 150}, {3, 30}, {4, 30}, {5, 90}} {
 		for range group.sessions {
-			s := []string{"home", "purchase"} // purchase before view_item must not count
+			s := []string{"home", "order"} // order before product_view must not count
 			for _, step := range shopSteps[:group.depth] {
 				s = append(s, step, "search")
 			}
@@ -103,7 +103,7 @@ func TestFunnelExample(t *testing.T) {
 		t.Errorf("StepAbandonment = %v, want %v", got, want)
 	}
 	if got, want := Abandonment(reached[1], reached[4]), 7.0/10; got != want {
-		t.Errorf("cart abandonment = %v, want %v", got, want)
+		t.Errorf("basket abandonment = %v, want %v", got, want)
 	}
 	// Overall conversion 9/100, so abandonment from entry to the end is 91/100.
 	if got, want := Abandonment(reached[0], reached[4]), 91.0/100; got != want {

@@ -3,7 +3,7 @@ package pathstats
 import "strings"
 
 // PathSeparator joins the elements of a path key.
-const PathSeparator = " > "
+const PathSeparator = " → "
 
 // PathEllipsis stands for the elements PathKey leaves out of a long path.
 const PathEllipsis = "…"
@@ -27,9 +27,9 @@ func CollapseRepeats(dst, in []string) []string {
 // first maxLen−1 elements, then PathEllipsis, then its last element, so it
 // shows maxLen elements of the path (the ellipsis is not counted):
 //
-//	PathKey([a a b c d e], 3) = "a > b > … > e"
-//	PathKey([a b c d], 1)     = "… > d"
-//	PathKey([a b c], 3)       = "a > b > c"
+//	PathKey([a a b c d e], 3) = "a → b → … → e"
+//	PathKey([a b c d], 1)     = "… → d"
+//	PathKey([a b c], 3)       = "a → b → c"
 //
 // maxLen <= 0 means no limit; an empty path gives "". Paths that differ only
 // in their elided middle share a key, and an element containing

@@ -21,8 +21,8 @@ func TestCollapseRepeats(t *testing.T) {
 			t.Errorf("CollapseRepeats(%q) = %q, want %q", tt.in, got, tt.want)
 		}
 		// Appends after what dst already holds.
-		if got, want := CollapseRepeats([]string{"START"}, tt.in), append([]string{"START"}, tt.want...); !slices.Equal(got, want) {
-			t.Errorf("CollapseRepeats([START], %q) = %q, want %q", tt.in, got, want)
+		if got, want := CollapseRepeats([]string{"@entry"}, tt.in), append([]string{"@entry"}, tt.want...); !slices.Equal(got, want) {
+			t.Errorf("CollapseRepeats([@entry], %q) = %q, want %q", tt.in, got, want)
 		}
 		// In place.
 		buf := slices.Clone(tt.in)
@@ -39,13 +39,13 @@ func TestPathKey(t *testing.T) {
 		maxLen int
 		want   string
 	}{
-		{"collapsed then cut", []string{"a", "a", "b", "c", "d", "e"}, 3, "a > b > … > e"},
-		{"max 1", []string{"a", "b", "c", "d"}, 1, "… > d"},
-		{"exactly max", []string{"a", "b", "c"}, 3, "a > b > c"},
-		{"fits after collapsing", []string{"a", "b", "b", "b", "c"}, 3, "a > b > c"},
-		{"one over", []string{"a", "b", "c", "d"}, 3, "a > b > … > d"},
-		{"repeats at the end", []string{"a", "b", "c", "d", "e", "e"}, 2, "a > … > e"},
-		{"no limit", []string{"view_item", "add_to_cart", "view_item"}, 0, "view_item > add_to_cart > view_item"},
+		{"collapsed then cut", []string{"a", "a", "b", "c", "d", "e"}, 3, "a → b → … → e"},
+		{"max 1", []string{"a", "b", "c", "d"}, 1, "… → d"},
+		{"exactly max", []string{"a", "b", "c"}, 3, "a → b → c"},
+		{"fits after collapsing", []string{"a", "b", "b", "b", "c"}, 3, "a → b → c"},
+		{"one over", []string{"a", "b", "c", "d"}, 3, "a → b → … → d"},
+		{"repeats at the end", []string{"a", "b", "c", "d", "e", "e"}, 2, "a → … → e"},
+		{"no limit", []string{"product_view", "basket_add", "product_view"}, 0, "product_view → basket_add → product_view"},
 		{"single", []string{"home"}, 3, "home"},
 		{"empty", nil, 3, ""},
 	}

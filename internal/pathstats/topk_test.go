@@ -96,7 +96,7 @@ func zipfStream(seed int64, n, keys int, maxWeight int64) ([]string, []int64) {
 	z := rand.NewZipf(rng, 1.2, 1, uint64(keys-1))
 	names := make([]string, keys)
 	for i := range names {
-		names[i] = "view_item > add_to_cart > p" + strconv.Itoa(i)
+		names[i] = "product_view > basket_add > p" + strconv.Itoa(i)
 	}
 	stream := make([]string, n)
 	weights := make([]int64, n)

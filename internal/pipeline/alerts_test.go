@@ -12,10 +12,10 @@ import (
 	"github.com/touchledger/touchledger/internal/state"
 )
 
-// TestAbandonmentSpikeOpensAlert replays sessions whose cart abandonment per
+// TestAbandonmentSpikeOpensAlert replays sessions whose basket abandonment per
 // 5-minute interval follows the spike example of check-values.md §5
 // ([computed]; EWMA after Roberts 1959 and NIST/SEMATECH §6.3.2.4, binomial
-// limits after NIST §6.3.3.2): 400 cart sessions per interval, baseline
+// limits after NIST §6.3.3.2): 400 basket sessions per interval, baseline
 // 10 %, then 40, 44, 36, 48, 56, 64 abandons (10 % → 16 %). With λ = 0.2 and
 // L = 3 the chart first crosses its limit at the sixth interval
 // (z_6 = 0.120755 > UCL 0.114475), so the alert must open exactly there, and
@@ -36,17 +36,17 @@ func TestAbandonmentSpikeOpensAlert(t *testing.T) {
 		for s := 0; s < 400; s++ {
 			u := fmt.Sprintf("u%d-%d", i, s)
 			at := start.Add(time.Duration(s) * 600 * time.Millisecond)
-			emit(u, at, "view_item")
-			emit(u, at.Add(time.Second), "add_to_cart")
+			emit(u, at, "product_view")
+			emit(u, at.Add(time.Second), "basket_add")
 			if s >= ab { // the first `ab` sessions abandon
 				emit(u, at.Add(2*time.Second), "checkout")
-				emit(u, at.Add(3*time.Second), "purchase")
+				emit(u, at.Add(3*time.Second), "order")
 			}
 		}
 	}
 	c := config.Default()
 	c.Alert.Target = 0.10
-	c.Alert.Step = "add_to_cart" // cart sessions that do not buy
+	c.Alert.Step = "basket_add" // basket sessions that do not buy
 	dir := t.TempDir()
 	cp := replayBytes(t, dir, FromConfig(c), "spike", []byte(strings.Join(lines, "\n")))
 	if cp.Counts.Accepted != uint64(len(lines)) {
@@ -93,7 +93,7 @@ func TestAbandonmentSpikeOpensAlert(t *testing.T) {
 	}
 	for _, p := range a.Points {
 		if p.Sessions != 400 {
-			t.Errorf("interval %s: %d cart sessions, want 400", p.Start, p.Sessions)
+			t.Errorf("interval %s: %d basket sessions, want 400", p.Start, p.Sessions)
 		}
 	}
 	t.Logf("alert %+v", al)

@@ -18,13 +18,13 @@ import (
 
 // refPaths is the independent computation of sessions and journeys.
 type refPaths struct {
-	funnel      map[string]int64 // step -> sessions reaching it in order
-	sessions    int64
-	cart, cartC int64
-	actTrans    map[[2]string]int64
-	chanTrans   map[[2]string]int64 // order 1, repeats collapsed
-	journeys    map[string][2]int64 // channel path (comma-joined) -> journeys, conversions
-	noPath      int64               // conversions without an eligible touch
+	funnel          map[string]int64 // step -> sessions reaching it in order
+	sessions        int64
+	basket, basketC int64
+	actTrans        map[[2]string]int64
+	chanTrans       map[[2]string]int64 // order 1, repeats collapsed
+	journeys        map[string][2]int64 // channel path (comma-joined) -> journeys, conversions
+	noPath          int64               // conversions without an eligible touch
 }
 
 // referencePaths recomputes, from the raw lines and the rules of issue 3
@@ -48,7 +48,7 @@ func referencePaths(t *testing.T, input []byte) refPaths {
 		}
 		byUser[e.User] = append(byUser[e.User], e)
 	}
-	steps := []string{"view_item", "add_to_cart", "checkout", "purchase"}
+	steps := []string{"product_view", "basket_add", "checkout", "order"}
 	r := refPaths{funnel: map[string]int64{}, actTrans: map[[2]string]int64{}, chanTrans: map[[2]string]int64{}, journeys: map[string][2]int64{}}
 	endSession := func(path []string) {
 		if len(path) == 0 {
@@ -64,19 +64,19 @@ func referencePaths(t *testing.T, input []byte) refPaths {
 		for i := 0; i < next; i++ {
 			r.funnel[steps[i]]++
 		}
-		cart, conv := false, false
-		prev := "START"
+		basket, conv := false, false
+		prev := "@entry"
 		for _, a := range path {
-			cart = cart || a == "add_to_cart"
-			conv = conv || a == "purchase"
+			basket = basket || a == "basket_add"
+			conv = conv || a == "order"
 			r.actTrans[[2]string{prev, a}]++
 			prev = a
 		}
-		r.actTrans[[2]string{prev, "END"}]++
-		if cart {
-			r.cart++
+		r.actTrans[[2]string{prev, "@exit"}]++
+		if basket {
+			r.basket++
 			if conv {
-				r.cartC++
+				r.basketC++
 			}
 		}
 	}
@@ -93,7 +93,7 @@ func referencePaths(t *testing.T, input []byte) refPaths {
 			j[1]++
 		}
 		r.journeys[strings.Join(chans, ",")] = j
-		prev := "START"
+		prev := "@entry"
 		for i, c := range chans {
 			if i > 0 && c == chans[i-1] {
 				continue
@@ -101,9 +101,9 @@ func referencePaths(t *testing.T, input []byte) refPaths {
 			r.chanTrans[[2]string{prev, c}]++
 			prev = c
 		}
-		end := "NULL"
+		end := "@lost"
 		if converted {
-			end = "CONVERSION"
+			end = "@converted"
 		}
 		r.chanTrans[[2]string{prev, end}]++
 	}
@@ -139,7 +139,7 @@ func referencePaths(t *testing.T, input []byte) refPaths {
 			}
 			path = append(path, e.Action)
 			last = e.t
-			if e.Action == "purchase" {
+			if e.Action == "order" {
 				var el []touch
 				for _, tc := range journey {
 					lb := 30 * day
@@ -197,8 +197,8 @@ func TestReplayPathStatisticsMatchIndependentComputation(t *testing.T) {
 			t.Errorf("funnel step %s = %d, want %d", s.Step, s.Sessions, want.funnel[s.Step])
 		}
 	}
-	if f.CartSessions != want.cart || math.Abs(f.CartAbandonment-float64(want.cart-want.cartC)/float64(want.cart)) > 1e-12 {
-		t.Errorf("cart = %d (%.4f), want %d of which %d converted", f.CartSessions, f.CartAbandonment, want.cart, want.cartC)
+	if f.BasketSessions != want.basket || math.Abs(f.BasketAbandonment-float64(want.basket-want.basketC)/float64(want.basket)) > 1e-12 {
+		t.Errorf("basket = %d (%.4f), want %d of which %d converted", f.BasketSessions, f.BasketAbandonment, want.basket, want.basketC)
 	}
 
 	at, err := q.Transitions("action", 0, all)
@@ -230,14 +230,14 @@ func TestReplayPathStatisticsMatchIndependentComputation(t *testing.T) {
 	for k, n := range want.chanTrans {
 		from, to := k[0], k[1]
 		switch from {
-		case "START":
-			from = credit.StateStart
+		case "@entry":
+			from = credit.StateEntry
 		}
 		switch to {
-		case "CONVERSION":
-			to = credit.StateConversion
-		case "NULL":
-			to = credit.StateNull
+		case "@converted":
+			to = credit.StateConverted
+		case "@lost":
+			to = credit.StateLost
 		}
 		counts = append(counts, credit.TransitionCount{From: from, To: to, Count: n})
 	}

@@ -34,7 +34,7 @@ func testConfig() Config {
 			ViewLookback:   day,
 			JourneyTimeout: 30 * day,
 			DedupHorizon:   7 * day,
-			Conversions:    []string{"purchase"},
+			Conversions:    []string{"order"},
 			Credit:         credit.Params{HalfLife: 7 * day, First: 0.4, Middle: 0.2, Last: 0.4, Direct: "direct"},
 			MaxPath:        64,
 			MaxTouches:     100,
@@ -198,7 +198,7 @@ func referenceCredit(t testing.TB, input []byte) map[string]*refAnswer {
 		e.t, e.line = tm, i
 		byUser[e.User] = append(byUser[e.User], e)
 	}
-	models := []string{"first-touch", "last-touch", "last-non-direct", "linear", "time-decay", "position-based"}
+	models := []string{"first-touch", "last-touch", "last-marketing", "linear", "time-decay", "position-based"}
 	out := map[string]*refAnswer{}
 	for _, m := range models {
 		out[m] = &refAnswer{conv: map[string]float64{}, val: map[string]float64{}}
@@ -224,7 +224,7 @@ func referenceCredit(t testing.TB, input []byte) map[string]*refAnswer {
 				journey = append(journey, touch{e.Channel, e.t, e.Interaction == "view"})
 				continue
 			}
-			if e.Action != "purchase" {
+			if e.Action != "order" {
 				continue
 			}
 			v := 0.0
@@ -258,7 +258,7 @@ func referenceCredit(t testing.TB, input []byte) map[string]*refAnswer {
 					w[0] = 1
 				case "last-touch":
 					w[n-1] = 1
-				case "last-non-direct":
+				case "last-marketing":
 					k := n - 1
 					for i := n - 1; i >= 0; i-- {
 						if el[i].ch != "direct" {
@@ -339,8 +339,8 @@ func TestReplayDisorderDuplicatesAndJunk(t *testing.T) {
 		`{"id":"x1","user":"u","time":"not a time","kind":"touch","channel":"a"}`,
 		`{"id":"x2","user":"u","time":"2026-10-02T00:00:00Z","kind":"teleport"}`,
 		`not json at all`,
-		`{"id":"","user":"u","time":"2026-10-02T00:00:00Z","kind":"action","action":"purchase"}`,
-		`{"id":"x3","user":"u","time":"2026-10-02T00:00:00Z","kind":"action","action":"purchase","value":-5}`,
+		`{"id":"","user":"u","time":"2026-10-02T00:00:00Z","kind":"action","action":"order"}`,
+		`{"id":"x3","user":"u","time":"2026-10-02T00:00:00Z","kind":"action","action":"order","value":-5}`,
 		"{\"id\":\"x4\",\"user\":\"\xff\xfe\",\"time\":\"2026-10-02T00:00:00Z\",\"kind\":\"touch\",\"channel\":\"a\"}",
 		`{"id":"x5","user":"u","time":"2026-10-02T00:00:00Z","kind":"touch"}`,
 	}

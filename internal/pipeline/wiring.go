@@ -20,7 +20,7 @@ func FromConfig(c config.Config) Config {
 			ViewLookback:   c.ViewLookback.D(),
 			JourneyTimeout: c.JourneyTimeout.D(),
 			DedupHorizon:   c.DedupHorizon.D(),
-			Conversions:    c.ConversionActions,
+			Conversions:    c.GoalActions,
 			Credit: credit.Params{
 				HalfLife: c.HalfLife.D(),
 				First:    c.PositionWeights.First,
@@ -32,7 +32,7 @@ func FromConfig(c config.Config) Config {
 			MaxTouches:  100,
 			PathStats:   true,
 			FunnelSteps: c.FunnelSteps,
-			CartStep:    c.CartStep,
+			BasketStep:  c.BasketStep,
 		},
 		Lateness:       c.Lateness.D(),
 		Currency:       c.Currency,

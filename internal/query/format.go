@@ -314,7 +314,7 @@ func WritePaths(w io.Writer, a PathsAnswer, f Format) error {
 	}
 	what := "sessions (actions, repeats collapsed)"
 	if a.Level == "channel" {
-		what = "journeys (channels, ending in conversion or null)"
+		what = "journeys (channels, ending in @converted or @lost)"
 	}
 	fmt.Fprintf(w, "most frequent paths of %s · %s · %d in all\n\n", what, a.Coverage, a.Total)
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
@@ -340,7 +340,7 @@ func WriteFunnel(w io.Writer, a FunnelAnswer, f Format) error {
 		}
 		return csvOut(w, rows)
 	}
-	fmt.Fprintf(w, "closed funnel of %d sessions ending %s\n\n", a.Sessions, a.Coverage)
+	fmt.Fprintf(w, "in-order funnel of %d sessions ending %s\n\n", a.Sessions, a.Coverage)
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
 	fmt.Fprintln(tw, "STEP\tSESSIONS\tDROP TO NEXT\t\t")
 	var first int64
@@ -359,8 +359,8 @@ func WriteFunnel(w io.Writer, a FunnelAnswer, f Format) error {
 		fmt.Fprintf(tw, "%s\t%d\t%s\t%s\t\n", s.Step, s.Sessions, drop, Bar(frac, 30))
 	}
 	tw.Flush()
-	_, err := fmt.Fprintf(w, "\ncart abandonment %s of %d cart sessions · first to last step %s\n",
-		pct(a.CartAbandonment), a.CartSessions, pct(a.OverallConversion))
+	_, err := fmt.Fprintf(w, "\nbasket abandonment %s of %d basket sessions · first to last step %s\n",
+		pct(a.BasketAbandonment), a.BasketSessions, pct(a.OverallConversion))
 	return err
 }
 

@@ -26,7 +26,7 @@ type Params struct {
 	PathMaxLen      int           `json:"path_max_len"`     // path keys show at most this many steps
 	ShapleyCap      int           `json:"shapley_cap"`
 	FunnelSteps     []string      `json:"funnel_steps"`
-	CartStep        string        `json:"cart_step"`
+	BasketStep      string        `json:"basket_step"`
 	AlertInterval   time.Duration `json:"alert_interval_ns"`
 	AlertStep       string        `json:"alert_step"` // funnel step whose abandonment is watched
 	Alert           alert.Params  `json:"alert"`      // Baseline in intervals
@@ -42,7 +42,7 @@ func ParamsFrom(c config.Config) Params {
 		PathMaxLen:      c.PathMaxLen,
 		ShapleyCap:      c.ShapleyCap,
 		FunnelSteps:     c.FunnelSteps,
-		CartStep:        c.CartStep,
+		BasketStep:      c.BasketStep,
 		AlertInterval:   step,
 		AlertStep:       c.Alert.Step,
 		Alert: alert.Params{
@@ -103,8 +103,8 @@ func Coalitions(paths tally.Table) []credit.Coalition {
 
 // MarkovCounts derives the order-k transition counts from journey paths:
 // each path of n journeys with c conversions contributes n × its states'
-// transitions, c × (last state → CONVERSION) and (n − c) × (last state →
-// NULL). Paths (the empty one excepted) are START-prefixed as in
+// transitions, c × (last state → @converted) and (n − c) × (last state →
+// @lost). Paths (the empty one excepted) are @entry-prefixed as in
 // credit.PathTransitions.
 func MarkovCounts(paths tally.Table, k int, collapse bool) []credit.TransitionCount {
 	counts := map[credit.Transition]int64{}
@@ -120,10 +120,10 @@ func MarkovCounts(paths tally.Table, k int, collapse bool) []credit.TransitionCo
 			counts[tr] += v[0]
 		}
 		if v[1] != 0 {
-			counts[credit.Transition{From: last, To: credit.StateConversion}] += v[1]
+			counts[credit.Transition{From: last, To: credit.StateConverted}] += v[1]
 		}
 		if n := v[0] - v[1]; n != 0 {
-			counts[credit.Transition{From: last, To: credit.StateNull}] += n
+			counts[credit.Transition{From: last, To: credit.StateLost}] += n
 		}
 	}
 	out := make([]credit.TransitionCount, 0, len(counts))
@@ -174,7 +174,7 @@ func DataDrivenCredit(model string, order int, plan Plan, p Params, totals, path
 				return CreditAnswer{}, err
 			default:
 				channels, shares = r.Channels, r.Share
-				a.Notes = append(a.Notes, fmt.Sprintf("conversion probability from start %.4f", r.PConversion))
+				a.Notes = append(a.Notes, fmt.Sprintf("conversion probability from @entry %.4f", r.PConversion))
 			}
 		}
 	case ModelShapley:
@@ -269,39 +269,33 @@ type Transition struct {
 // stateLabel names a Markov state for people.
 func stateLabel(s string) string {
 	switch s {
-	case credit.StateStart:
-		return "START"
-	case credit.StateConversion:
-		return "CONVERSION"
-	case credit.StateNull:
-		return "NULL"
+	case credit.StateEntry:
+		return event.StateEntry
+	case credit.StateConverted:
+		return event.StateConverted
+	case credit.StateLost:
+		return event.StateLost
 	}
-	return strings.Join(credit.StateChannels(s), ">")
+	return strings.Join(credit.StateChannels(s), pathstats.PathSeparator)
 }
 
 // ActionCounts derives within-session action transitions from session
-// paths: START → a1 → … → an → END, every consecutive pair, repeats kept.
+// paths: @entry → a1 → … → an → @exit, every consecutive pair, repeats kept.
 func ActionCounts(paths tally.Table) map[[2]string]int64 {
 	counts := map[[2]string]int64{}
 	for dims, v := range paths {
 		if dims == "" || v[0] == 0 {
 			continue
 		}
-		prev := ActionStart
+		prev := event.StateEntry
 		for _, a := range tally.Split(dims) {
 			counts[[2]string{prev, a}] += v[0]
 			prev = a
 		}
-		counts[[2]string{prev, ActionEnd}] += v[0]
+		counts[[2]string{prev, event.StateExit}] += v[0]
 	}
 	return counts
 }
-
-// Session path markers in action transitions.
-const (
-	ActionStart = "START"
-	ActionEnd   = "END"
-)
 
 // Transitions builds a transition matrix from journey paths (level channel,
 // Markov order k, as the Markov model sees them) or session paths (level
@@ -330,11 +324,11 @@ func Transitions(level string, order int, collapse bool, plan Plan, paths tally.
 	}
 	rank := func(s string) int {
 		switch s {
-		case "START":
+		case event.StateEntry:
 			return 0
-		case "CONVERSION", "END":
+		case event.StateConverted, event.StateExit:
 			return 2
-		case "NULL":
+		case event.StateLost:
 			return 3
 		}
 		return 1
@@ -401,10 +395,10 @@ func Paths(level string, top, maxLen int, plan Plan, t tally.Table) PathsAnswer 
 		key := pathstats.PathKey(tally.Split(dims), maxLen)
 		if level == "channel" {
 			if v[1] != 0 {
-				add(key+" > CONVERSION", v[1], v[1])
+				add(key+pathstats.PathSeparator+event.StateConverted, v[1], v[1])
 			}
 			if n := v[0] - v[1]; n != 0 {
-				add(key+" > NULL", n, 0)
+				add(key+pathstats.PathSeparator+event.StateLost, n, 0)
 			}
 		} else {
 			add(key, v[0], v[1])
@@ -442,13 +436,13 @@ type FunnelAnswer struct {
 	Coverage
 	Sessions          int64        `json:"sessions"`
 	Steps             []FunnelStep `json:"steps"`
-	CartSessions      int64        `json:"cart_sessions"`
-	CartAbandonment   float64      `json:"cart_abandonment"`
+	BasketSessions    int64        `json:"basket_sessions"`
+	BasketAbandonment float64      `json:"basket_abandonment"`
 	OverallConversion float64      `json:"overall_conversion"`           // last step / first step
 	MissingPartitions []int        `json:"missing_partitions,omitempty"` // partitions that did not answer
 }
 
-// FunnelStep is one step of a closed funnel: sessions that reached it in
+// FunnelStep is one step of an in-order funnel: sessions that reached it in
 // order, and the share of those that did not reach the next step.
 type FunnelStep struct {
 	Step        string  `json:"step"`
@@ -456,14 +450,14 @@ type FunnelStep struct {
 	Abandonment float64 `json:"abandonment"` // 1 − next/this; 0 for the last step
 }
 
-// Funnel builds the closed funnel over sessions whose last event lies in the
+// Funnel builds the in-order funnel over sessions whose last event lies in the
 // window: reached(i) = sessions with depth > i; abandonment(i) = 1 −
-// reached(i+1)/reached(i) (common practice); cart abandonment = cart
-// sessions without a conversion / cart sessions.
+// reached(i+1)/reached(i) (common practice); basket abandonment = basket
+// sessions without a conversion / basket sessions.
 func Funnel(steps []string, plan Plan, t tally.Table) FunnelAnswer {
 	a := FunnelAnswer{Coverage: plan.Coverage}
 	reached := make([]int64, len(steps))
-	var cart, cartConv int64
+	var basket, basketConv int64
 	for dims, v := range t {
 		d, err := strconv.Atoi(dims)
 		if err != nil || d < 0 {
@@ -473,8 +467,8 @@ func Funnel(steps []string, plan Plan, t tally.Table) FunnelAnswer {
 		for i := 0; i < d && i < len(steps); i++ {
 			reached[i] += v[0]
 		}
-		cart += v[1]
-		cartConv += v[2]
+		basket += v[1]
+		basketConv += v[2]
 	}
 	for i, s := range steps {
 		st := FunnelStep{Step: s, Sessions: reached[i]}
@@ -483,9 +477,9 @@ func Funnel(steps []string, plan Plan, t tally.Table) FunnelAnswer {
 		}
 		a.Steps = append(a.Steps, st)
 	}
-	a.CartSessions = cart
-	if cart > 0 {
-		a.CartAbandonment = float64(cart-cartConv) / float64(cart)
+	a.BasketSessions = basket
+	if basket > 0 {
+		a.BasketAbandonment = float64(basket-basketConv) / float64(basket)
 	}
 	if len(steps) > 0 && reached[0] > 0 {
 		a.OverallConversion = float64(reached[len(steps)-1]) / float64(reached[0])

@@ -433,7 +433,7 @@ func (q *Querier) funnel(s Span) (FunnelAnswer, error) {
 	return Funnel(q.p.FunnelSteps, p, t), nil
 }
 
-// alerts answers an alerts question: the abandonment chart is run from the
+// alerts answers an alerts question: the step-abandonment chart is run from the
 // baseline's length before the window (so the baseline is warm) and the
 // alerts that were open at any time in the window are listed. The series
 // comes from the finest resolution whose step divides the interval, so it

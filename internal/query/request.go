@@ -138,7 +138,7 @@ var kindHelp = map[Kind]string{
 	KindTransitions: "how journeys move between channels (as the Markov model sees them), or sessions between actions, with row probabilities",
 	KindPaths:       "the most frequent whole session or journey paths, with conversion rates",
 	KindFunnel:      "sessions reaching each funnel step in order, and where they drop out",
-	KindAlerts:      "abandonment spikes found by an EWMA control chart",
+	KindAlerts:      "abandonment spikes after the watched funnel step (EWMA control chart)",
 	KindStatus:      "what the data holds",
 	KindScorecard:   "each model's credit next to a simulated world's true incremental conversions",
 }

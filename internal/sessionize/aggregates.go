@@ -23,7 +23,7 @@ import (
 //	              Vec = {journeys, conversions, value micro-units}
 //	SessionPaths: actions joined by 0x1f. Vec = {sessions, converted sessions, 0}
 //	Funnel:       depth reached, decimal (finest buckets, for alerts)
-//	              Vec = {sessions, sessions reaching the cart step, of those converted}
+//	              Vec = {sessions, sessions reaching the basket step, of those converted}
 
 // journeyAgg adds sign × the aggregates of a journey with the given channel
 // path at time at (Unix ns).
@@ -63,24 +63,24 @@ func (t *Tracker) sessionAgg(b *tally.Batch, u *UserState, sign int64) {
 }
 
 // funnelOf returns a session's funnel depth and its Funnel vector
-// {1, reached the cart step, reached it and converted}.
+// {1, reached the basket step, reached it and converted}.
 func (t *Tracker) funnelOf(path []string) (int, tally.Vec) {
-	cart := false
+	basket := false
 	for _, a := range path {
-		if a == t.p.CartStep {
-			cart = true
+		if a == t.p.BasketStep {
+			basket = true
 			break
 		}
 	}
 	v := tally.Vec{1, 0, 0}
-	if cart {
+	if basket {
 		v[1] = 1
 		v[2] = t.converted(path)
 	}
 	return pathstats.FunnelDepth(path, t.p.FunnelSteps), v
 }
 
-// converted returns 1 if the path holds a conversion action, else 0.
+// converted returns 1 if the path holds a goal action, else 0.
 func (t *Tracker) converted(path []string) int64 {
 	for _, a := range path {
 		if t.conv[a] {

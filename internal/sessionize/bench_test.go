@@ -21,11 +21,11 @@ const day = 24 * time.Hour
 func defaultParams() sessionize.Params {
 	return sessionize.Params{
 		SessionGap: 30 * time.Minute, ClickLookback: 30 * day, ViewLookback: day,
-		JourneyTimeout: 30 * day, DedupHorizon: 7 * day, Conversions: []string{"purchase"},
+		JourneyTimeout: 30 * day, DedupHorizon: 7 * day, Conversions: []string{"order"},
 		Credit:  credit.Params{HalfLife: 7 * day, First: 0.4, Middle: 0.2, Last: 0.4, Direct: "direct"},
 		MaxPath: 64, MaxTouches: 100,
-		PathStats: true, FunnelSteps: []string{"view_item", "add_to_cart", "checkout", "purchase"},
-		CartStep: "add_to_cart",
+		PathStats: true, FunnelSteps: []string{"product_view", "basket_add", "checkout", "order"},
+		BasketStep: "basket_add",
 	}
 }
 

@@ -8,7 +8,7 @@ import (
 // FuzzUserState: decoding stored user state never panics, and whatever
 // decodes re-encodes to the same bytes.
 func FuzzUserState(f *testing.F) {
-	u := UserState{LastAction: 5, SessionStart: 3, Sessions: 2, PathLen: 2, Path: []string{"view_item", "add_to_cart"},
+	u := UserState{LastAction: 5, SessionStart: 3, Sessions: 2, PathLen: 2, Path: []string{"product_view", "basket_add"},
 		Touches: []Touch{{Channel: "mail", Campaign: "spring", Time: 1, View: true}}, Seen: []Seen{{Hash: 42, Time: 5}}}
 	f.Add(u.AppendBinary(nil))
 	f.Add((&UserState{}).AppendBinary(nil))

@@ -27,8 +27,8 @@ type Params struct {
 
 	// Path statistics (see aggregates.go). PathStats false skips them.
 	PathStats   bool
-	FunnelSteps []string // ordered funnel steps (closed funnel)
-	CartStep    string   // sessions reaching it count towards cart abandonment
+	FunnelSteps []string // ordered funnel steps (in-order funnel)
+	BasketStep  string   // sessions reaching it count towards basket abandonment
 }
 
 // Validate reports the first invalid parameter.
@@ -43,7 +43,7 @@ func (p Params) Validate() error {
 	case p.DedupHorizon <= 0:
 		return fmt.Errorf("de-duplication horizon must be positive, got %v", p.DedupHorizon)
 	case len(p.Conversions) == 0:
-		return fmt.Errorf("at least one conversion action is needed")
+		return fmt.Errorf("at least one goal action is needed")
 	case p.Credit.Direct == "":
 		return fmt.Errorf("the direct channel needs a name")
 	case p.MaxPath <= 0 || p.MaxTouches <= 0:

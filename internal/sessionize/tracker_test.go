@@ -54,7 +54,7 @@ func TestSessionGapBoundary(t *testing.T) {
 	var u sessionize.UserState
 	b := tally.NewBatch(60)
 	for i, ts := range times {
-		e := action(ts, "view_item")
+		e := action(ts, "product_view")
 		tr.Apply(&u, &e, xxhash.Sum64String(e.ID), b)
 		if u.Sessions != want[i] {
 			t.Errorf("event %d at %s: session %d, want %d", i+1, ts, u.Sessions, want[i])
@@ -96,22 +96,22 @@ func TestLookbackEdges(t *testing.T) {
 		events []event.Event
 		want   map[string]float64 // linear credit
 	}{
-		{"click at exactly 30d", []event.Event{touch("2026-01-01T00:00:00Z", "mail", false), action("2026-01-31T00:00:00Z", "purchase")},
+		{"click at exactly 30d", []event.Event{touch("2026-01-01T00:00:00Z", "mail", false), action("2026-01-31T00:00:00Z", "order")},
 			map[string]float64{"mail": 1}},
-		{"click at 30d+1s", []event.Event{touch("2026-01-01T00:00:00Z", "mail", false), action("2026-01-31T00:00:01Z", "purchase")},
+		{"click at 30d+1s", []event.Event{touch("2026-01-01T00:00:00Z", "mail", false), action("2026-01-31T00:00:01Z", "order")},
 			map[string]float64{"direct": 1}},
-		{"view at exactly 1d", []event.Event{touch("2026-01-01T00:00:00Z", "banner", true), action("2026-01-02T00:00:00Z", "purchase")},
+		{"view at exactly 1d", []event.Event{touch("2026-01-01T00:00:00Z", "banner", true), action("2026-01-02T00:00:00Z", "order")},
 			map[string]float64{"banner": 1}},
-		{"view at 1d+1s", []event.Event{touch("2026-01-01T00:00:00Z", "banner", true), action("2026-01-02T00:00:01Z", "purchase")},
+		{"view at 1d+1s", []event.Event{touch("2026-01-01T00:00:00Z", "banner", true), action("2026-01-02T00:00:01Z", "order")},
 			map[string]float64{"direct": 1}},
-		{"old view dropped, click kept", []event.Event{touch("2026-01-01T00:00:00Z", "banner", true), touch("2026-01-01T01:00:00Z", "mail", false), action("2026-01-03T00:00:00Z", "purchase")},
+		{"old view dropped, click kept", []event.Event{touch("2026-01-01T00:00:00Z", "banner", true), touch("2026-01-01T01:00:00Z", "mail", false), action("2026-01-03T00:00:00Z", "order")},
 			map[string]float64{"mail": 1}},
 		{"journey timeout: last touch exactly 30d before next touch keeps the journey",
-			[]event.Event{touch("2026-01-01T00:00:00Z", "a", false), touch("2026-01-31T00:00:00Z", "b", false), action("2026-01-31T00:00:00Z", "purchase")},
+			[]event.Event{touch("2026-01-01T00:00:00Z", "a", false), touch("2026-01-31T00:00:00Z", "b", false), action("2026-01-31T00:00:00Z", "order")},
 			map[string]float64{"a": 0.5, "b": 0.5}},
-		{"journey timeout: more than 30d ends it", []event.Event{touch("2026-01-01T00:00:00Z", "a", false), touch("2026-01-31T00:00:01Z", "b", false), action("2026-01-31T00:00:01Z", "purchase")},
+		{"journey timeout: more than 30d ends it", []event.Event{touch("2026-01-01T00:00:00Z", "a", false), touch("2026-01-31T00:00:01Z", "b", false), action("2026-01-31T00:00:01Z", "order")},
 			map[string]float64{"b": 1}},
-		{"after a conversion the journey starts empty", []event.Event{touch("2026-01-01T00:00:00Z", "a", false), action("2026-01-01T01:00:00Z", "purchase"), action("2026-01-01T02:00:00Z", "purchase")},
+		{"after a conversion the journey starts empty", []event.Event{touch("2026-01-01T00:00:00Z", "a", false), action("2026-01-01T01:00:00Z", "order"), action("2026-01-01T02:00:00Z", "order")},
 			map[string]float64{"a": 1, "direct": 1}},
 	}
 	for _, c := range cases {
@@ -144,7 +144,7 @@ func TestFiveTouchConversion(t *testing.T) {
 		e := touch(conv.AddDate(0, 0, -28+7*i).Format(time.RFC3339), ch, false)
 		tr.Apply(&u, &e, xxhash.Sum64String(e.ID), b)
 	}
-	e := action(conv.Format(time.RFC3339), "purchase")
+	e := action(conv.Format(time.RFC3339), "order")
 	e.Value, e.HasValue = 50*event.ValueScale, true
 	tr.Apply(&u, &e, xxhash.Sum64String(e.ID), b)
 	value := func(model string) map[string]float64 {
@@ -157,12 +157,12 @@ func TestFiveTouchConversion(t *testing.T) {
 		return out
 	}
 	want := map[string][]float64{
-		"linear":          {10, 10, 10, 10, 10},
-		"time-decay":      {50.0 / 31, 100.0 / 31, 200.0 / 31, 400.0 / 31, 800.0 / 31},
-		"position-based":  {20, 10.0 / 3, 10.0 / 3, 10.0 / 3, 20},
-		"first-touch":     {50, 0, 0, 0, 0},
-		"last-touch":      {0, 0, 0, 0, 50},
-		"last-non-direct": {0, 0, 0, 50, 0},
+		"linear":         {10, 10, 10, 10, 10},
+		"time-decay":     {50.0 / 31, 100.0 / 31, 200.0 / 31, 400.0 / 31, 800.0 / 31},
+		"position-based": {20, 10.0 / 3, 10.0 / 3, 10.0 / 3, 20},
+		"first-touch":    {50, 0, 0, 0, 0},
+		"last-touch":     {0, 0, 0, 0, 50},
+		"last-marketing": {0, 0, 0, 50, 0},
 	}
 	for model, w := range want {
 		got := value(model)
@@ -187,7 +187,7 @@ func TestDuplicatesWithinHorizon(t *testing.T) {
 	tr, _ := sessionize.NewTracker(defaultParams())
 	var u sessionize.UserState
 	b := tally.NewBatch(60)
-	e := action("2026-01-01T00:00:00Z", "purchase")
+	e := action("2026-01-01T00:00:00Z", "order")
 	h := xxhash.Sum64String(e.ID)
 	if !tr.Apply(&u, &e, h, b) {
 		t.Fatal("first copy rejected")
@@ -195,7 +195,7 @@ func TestDuplicatesWithinHorizon(t *testing.T) {
 	if tr.Apply(&u, &e, h, b) {
 		t.Fatal("duplicate accepted")
 	}
-	later := action("2026-01-08T00:00:01Z", "view_item")
+	later := action("2026-01-08T00:00:01Z", "product_view")
 	tr.Apply(&u, &later, xxhash.Sum64String(later.ID), b)
 	if u.HasSeen(h) {
 		t.Error("id still remembered after the 7-day horizon")
@@ -245,7 +245,7 @@ func TestReorderMatchesSortedOrder(t *testing.T) {
 // TestUserStateRoundTrip: the stored form decodes to the same state, and
 // truncated input is an error, never a panic.
 func TestUserStateRoundTrip(t *testing.T) {
-	u := sessionize.UserState{LastAction: 5, SessionStart: 3, Sessions: 2, PathLen: 2, Path: []string{"view_item", "add_to_cart"},
+	u := sessionize.UserState{LastAction: 5, SessionStart: 3, Sessions: 2, PathLen: 2, Path: []string{"product_view", "basket_add"},
 		Touches: []sessionize.Touch{{Channel: "mail", Campaign: "spring", Time: 1, View: true}},
 		Seen:    []sessionize.Seen{{Hash: 42, Time: 5}}}
 	b := u.AppendBinary(nil)

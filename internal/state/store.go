@@ -195,11 +195,19 @@ func (s *Store) Limits() (bytes, entries int64) { return s.db.MaxBatchSize(), s.
 // DB exposes the Badger handle for maintenance (backup, GC).
 func (s *Store) DB() *badger.DB { return s.db }
 
-const formatVersion = 1
+// formatVersion is the first byte of the "format" meta key. Version 2 names
+// the states the tool adds @entry, @converted, @lost and @exit (version 1
+// used other names) and keeps path keys joined with " → "; a version 1
+// directory is refused, not migrated (no release used it).
+const formatVersion = 2
+
+// ErrFormat is returned by Open when the directory was written in another
+// store format version: replay the events into a new directory.
+var ErrFormat = errors.New("store format version differs")
 
 // checkFormat records the format version and resolutions on first use and
-// refuses a directory written with other resolutions (its buckets would not
-// line up).
+// refuses a directory written in another format version (ErrFormat) or with
+// other resolutions (its buckets would not line up).
 func (s *Store) checkFormat() error {
 	want := encodeResolutions(s.opt.Resolutions)
 	return s.db.Update(func(txn *badger.Txn) error {
@@ -211,8 +219,15 @@ func (s *Store) checkFormat() error {
 			return err
 		}
 		return it.Value(func(got []byte) error {
+			if len(got) == 0 || got[0] != formatVersion {
+				v := 0
+				if len(got) > 0 {
+					v = int(got[0])
+				}
+				return fmt.Errorf("state: %s holds store format %d, this build reads format %d; replay the events into a new directory: %w", s.opt.Dir, v, formatVersion, ErrFormat)
+			}
 			if string(got) != string(want) {
-				return fmt.Errorf("state: %s was written with other bucket resolutions or format; use the configuration it was created with or a new directory", s.opt.Dir)
+				return fmt.Errorf("state: %s was written with other bucket resolutions; use the configuration it was created with or a new directory", s.opt.Dir)
 			}
 			return nil
 		})

@@ -2,10 +2,13 @@ package state
 
 import (
 	"context"
+	"errors"
 	"os"
 	"strings"
 	"testing"
 	"time"
+
+	"github.com/dgraph-io/badger/v4"
 
 	"github.com/touchledger/touchledger/internal/tally"
 )
@@ -64,6 +67,48 @@ func TestOtherResolutionsRefused(t *testing.T) {
 	if s, err := Open(context.Background(), o); err == nil {
 		s.Close()
 		t.Fatal("opened with other resolutions")
+	}
+}
+
+// TestOldFormatRefused (issue 11): a directory written by format version 1
+// (before the state names changed) is refused with ErrFormat and a message
+// naming both versions, and is left as it was.
+func TestOldFormatRefused(t *testing.T) {
+	dir := t.TempDir()
+	o := DefaultOptions(dir)
+	raw, err := openRaw(o)
+	if err != nil {
+		t.Fatal(err)
+	}
+	old := encodeResolutions(o.Resolutions)
+	old[0] = 1
+	if err := raw.db.Update(func(txn *badger.Txn) error { return txn.Set(metaKey("format"), old) }); err != nil {
+		t.Fatal(err)
+	}
+	raw.db.Close()
+
+	s, err := Open(context.Background(), o)
+	if err == nil {
+		s.Close()
+		t.Fatal("opened a format 1 directory")
+	}
+	if !errors.Is(err, ErrFormat) {
+		t.Errorf("error %v is not ErrFormat", err)
+	}
+	if msg := err.Error(); !strings.Contains(msg, "holds store format 1, this build reads format 2") || !strings.Contains(msg, "new directory") {
+		t.Errorf("error %q does not name both versions and the way out", msg)
+	}
+	// Other resolutions on a current-format directory are not a format error.
+	dir2 := t.TempDir()
+	s, err = Open(context.Background(), DefaultOptions(dir2))
+	if err != nil {
+		t.Fatal(err)
+	}
+	s.Close()
+	o2 := DefaultOptions(dir2)
+	o2.Resolutions[0].Step = time.Minute
+	if _, err := Open(context.Background(), o2); err == nil || errors.Is(err, ErrFormat) {
+		t.Errorf("other resolutions: error %v, want a resolutions error that is not ErrFormat", err)
 	}
 }
 

@@ -114,7 +114,7 @@ func TestForgetOnLiveWorker(t *testing.T) {
 	// late), one of each kind; they are dropped when released.
 	at := lw.p.Status().LatestEvent.Format(time.RFC3339Nano)
 	late := fmt.Sprintf(`{"id":"after-1","user":%q,"time":%q,"kind":"touch","channel":"newsletter"}`+"\n"+
-		`{"id":"after-2","user":%q,"time":%q,"kind":"action","action":"view_item"}`+"\n", victim, at, victim, at)
+		`{"id":"after-2","user":%q,"time":%q,"kind":"action","action":"product_view"}`+"\n", victim, at, victim, at)
 	b.send(t, []byte(late))
 	last = b.lastSeq(t)
 	lw.waitFor(t, 30*time.Second, "the late copies read", func(s pipeline.Status) bool { return s.Next > last })

@@ -128,7 +128,7 @@ func benchFreshness(b *testing.B, rate int, length time.Duration, lateness time.
 			published[i] = now
 			u := users[pick[i]]
 			msg := &nats.Msg{Subject: Subject(cfg.Prefix, KindAction, u), Header: nats.Header{},
-				Data: fmt.Appendf(nil, `{"id":"f%d","user":%q,"time":%q,"kind":"action","action":"view_item"}`,
+				Data: fmt.Appendf(nil, `{"id":"f%d","user":%q,"time":%q,"kind":"action","action":"product_view"}`,
 					i, u, now.UTC().Format(time.RFC3339Nano))}
 			f, err := bus.js.PublishMsgAsync(msg, jetstream.WithMsgID(fmt.Sprint("f", i)))
 			if err != nil {

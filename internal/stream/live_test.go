@@ -75,12 +75,12 @@ func TestDeadLetters(t *testing.T) {
 	pcfg := processorConfig()
 	pcfg.Lateness = time.Minute
 	input := strings.Join([]string{
-		`{"id":"a1","user":"ann","time":"2026-10-01T12:00:00Z","kind":"action","action":"view_item"}`,
-		`{"id":"a2","user":"ann","time":"yesterday","kind":"action","action":"view_item"}`,
+		`{"id":"a1","user":"ann","time":"2026-10-01T12:00:00Z","kind":"action","action":"product_view"}`,
+		`{"id":"a2","user":"ann","time":"yesterday","kind":"action","action":"product_view"}`,
 		`not json at all`,
 		`{"id":"a3","user":"bob","time":"2026-10-01T12:00:00Z","kind":"visit"}`,
-		`{"id":"a4","user":"cid","time":"2026-10-01T14:00:00Z","kind":"action","action":"view_item"}`,
-		`{"id":"a5","user":"dan","time":"2026-10-01T12:30:00Z","kind":"action","action":"view_item"}`, // late: 90 min behind
+		`{"id":"a4","user":"cid","time":"2026-10-01T14:00:00Z","kind":"action","action":"product_view"}`,
+		`{"id":"a5","user":"dan","time":"2026-10-01T12:30:00Z","kind":"action","action":"product_view"}`, // late: 90 min behind
 	}, "\n")
 	sent := b.send(t, []byte(input))
 	if sent.Stored != 6 {
@@ -148,7 +148,7 @@ func TestQuietStreamReleasesBuffered(t *testing.T) {
 	now := time.Now().UTC()
 	var lines []string
 	for i := range 5 {
-		lines = append(lines, fmt.Sprintf(`{"id":"q%d","user":"u%d","time":%q,"kind":"action","action":"view_item"}`,
+		lines = append(lines, fmt.Sprintf(`{"id":"q%d","user":"u%d","time":%q,"kind":"action","action":"product_view"}`,
 			i, i, now.Add(time.Duration(i)*time.Millisecond).Format(time.RFC3339Nano)))
 	}
 	dir := t.TempDir()

@@ -45,11 +45,11 @@ func TestSendSubjectsAndIDs(t *testing.T) {
 	input := strings.Join([]string{
 		`{"id":"e1","user":"ann","time":"2026-10-01T00:00:00Z","kind":"touch","channel":"email"}`,
 		``,
-		`{"id":"e2","user":"ann","time":"2026-10-01T00:01:00Z","kind":"action","action":"view_item"}`,
+		`{"id":"e2","user":"ann","time":"2026-10-01T00:01:00Z","kind":"action","action":"product_view"}`,
 		`garbage`,
 		long,
 		`{"id":"e1","user":"ann","time":"2026-10-01T00:00:00Z","kind":"touch","channel":"email"}`, // same id: dropped by the stream
-		`{"id":"e3","user":"bob","time":"2026-10-01T00:02:00Z","kind":"action","action":"view_item","currency":"XYZ","campaign_name_that_is_unknown":1}`,
+		`{"id":"e3","user":"bob","time":"2026-10-01T00:02:00Z","kind":"action","action":"product_view","currency":"XYZ","campaign_name_that_is_unknown":1}`,
 	}, "\n")
 	st, err := Send(context.Background(), b.js, strings.NewReader(input), SendOptions{})
 	if err != nil {

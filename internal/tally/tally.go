@@ -35,15 +35,15 @@ const (
 	// Coalitions: Dims = sorted distinct channels joined by Sep.
 	// Vec = {journeys, conversions, value micro-units}. Provisional.
 	Coalitions Family = 5
-	// ActionTransitions: Dims = from + Sep + to (START/END included).
+	// ActionTransitions: Dims = from + Sep + to (@entry/@exit included).
 	// Vec = {count, 0, 0}. Provisional: moves as sessions grow.
 	ActionTransitions Family = 6
 	// Funnel: Dims = depth reached as a decimal string ("0".."n").
-	// Vec = {sessions, sessions that reached the cart step, of those converted}. Provisional.
+	// Vec = {sessions, sessions that reached the basket step, of those converted}. Provisional.
 	Funnel Family = 7
 	// SessionPaths: Dims = path key. Vec = {sessions, converted sessions, 0}. Provisional.
 	SessionPaths Family = 8
-	// JourneyPaths: Dims = path key ending in a conversion or null marker.
+	// JourneyPaths: Dims = path key ending in a conversion or lost marker.
 	// Vec = {journeys, conversions, value micro-units}. Provisional.
 	JourneyPaths Family = 9
 )
