@@ -479,9 +479,10 @@ func (p *Processor) forgetPending(pos uint64) {
 }
 
 // Tick lets event time advance with the wall clock while the input is quiet:
-// the largest event time seen is raised to lastEvent + (now − last arrival),
-// never beyond now, so a partition that receives nothing still releases its
-// buffered events and closes its sessions. It also commits when the commit
+// the watermark rises as if an event at lastEvent + (now − last arrival),
+// never beyond now, had arrived, so a partition that receives nothing still
+// releases its buffered events and closes its sessions. The largest event
+// time seen (where answers end) stays that of a real event. It also commits when the commit
 // interval has passed with changes pending. Live input only: replay never
 // uses the wall clock.
 func (p *Processor) Tick(ctx context.Context, now time.Time) error {

@@ -86,12 +86,15 @@ func (r *Reorder) Push(e *event.Event, pos uint64) {
 	r.add(e, pos, t)
 }
 
-// Advance raises the largest event time seen to t if it is larger (the
-// watermark follows), without adding an event. Live input uses it to let
-// event time pass while nothing arrives.
+// Advance lets event time pass to t without an event (live input that is
+// quiet): the watermark floor rises to t − lateness, so buffered events are
+// released and sessions close as if an event at t had arrived. The largest
+// event time seen is not changed: it stays the time of a real event, so
+// answers ending at it ("last 7 days") never reach into time no event
+// came from.
 func (r *Reorder) Advance(t int64) {
-	if t > r.maxSeen {
-		r.maxSeen = t
+	if w := t - r.lateness; w > r.floor {
+		r.floor = w
 	}
 }
 

@@ -110,9 +110,10 @@ func TestForgetOnLiveWorker(t *testing.T) {
 		t.Error("the victim's state is still stored right after the erasure")
 	}
 
-	// Late copies: new events for the victim at the latest event time (not
-	// late), one of each kind; they are dropped when released.
-	at := lw.p.Status().LatestEvent.Format(time.RFC3339Nano)
+	// Late copies: new events for the victim just after the watermark (not
+	// late: quiet input moved the watermark past the latest event), one of
+	// each kind; they are dropped when released.
+	at := lw.p.Status().Watermark.Add(time.Minute).Format(time.RFC3339Nano)
 	late := fmt.Sprintf(`{"id":"after-1","user":%q,"time":%q,"kind":"touch","channel":"newsletter"}`+"\n"+
 		`{"id":"after-2","user":%q,"time":%q,"kind":"action","action":"product_view"}`+"\n", victim, at, victim, at)
 	b.send(t, []byte(late))
