@@ -2,7 +2,6 @@ package main
 
 import (
 	"bytes"
-	"context"
 	"encoding/csv"
 	"encoding/json"
 	"os"
@@ -10,39 +9,14 @@ import (
 	"strings"
 	"testing"
 
-	"github.com/touchledger/touchledger/demo/shop"
 	"github.com/touchledger/touchledger/internal/config"
-	"github.com/touchledger/touchledger/internal/pipeline"
-	"github.com/touchledger/touchledger/internal/state"
+	"github.com/touchledger/touchledger/internal/testsupport"
 )
 
-// replayDemo fills a data directory with a small demo replay.
+// replayDemo fills a data directory with the small demo world.
 func replayDemo(t *testing.T) string {
 	t.Helper()
-	c := shop.DefaultConfig()
-	c.Visitors, c.Days, c.ShiftDay, c.IncidentDay = 2000, 7, 3, 5
-	var buf bytes.Buffer
-	if _, err := shop.Generate(&buf, c); err != nil {
-		t.Fatal(err)
-	}
-	dir := t.TempDir()
-	cfg := config.Default()
-	st, err := state.Open(context.Background(), pipeline.StoreOptions(dir, cfg))
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer st.Close()
-	p, err := pipeline.New(st, pipeline.FromConfig(cfg), nil, nil)
-	if err != nil {
-		t.Fatal(err)
-	}
-	if _, err := pipeline.Replay(context.Background(), p, "demo", &buf, cfg.Limits.MaxPayload); err != nil {
-		t.Fatal(err)
-	}
-	if err := p.Close(); err != nil {
-		t.Fatal(err)
-	}
-	return dir
+	return testsupport.ReplayDir(t, config.Default(), testsupport.DemoEvents(t))
 }
 
 func runCLI(args ...string) (code int, stdout, stderr string) {
@@ -125,9 +99,9 @@ func TestClearErrors(t *testing.T) {
 		want string
 	}{
 		{[]string{"credit", "--data", dir, "--model", "lastclick"}, 2, `model: unknown model "lastclick" (use one of first-touch`},
-		{[]string{"credit", "--data", dir, "--model", "linear", "--top", "3"}, 2, "flag provided but not defined: -top"},
+		{[]string{"credit", "--data", dir, "--model", "linear", "--top", "3"}, 2, "query credit: top: unknown parameter for credit (credit takes model, order, by, last, from, to)"},
 		{[]string{"credit", "--data", dir, "--model", "linear", "--order", "2"}, 2, "order: applies to the markov model only"},
-		{[]string{"shift", "--data", dir, "--model", "linear", "--from", "2026-10-10"}, 2, "flag provided but not defined: -from"},
+		{[]string{"shift", "--data", dir, "--model", "linear", "--from", "2026-10-10"}, 2, "query shift: from: unknown parameter for shift (shift takes model, order, days)"},
 		{[]string{"credit", "--data", dir, "--model", "linear", "--from", "yesterday"}, 2, "neither an RFC 3339 time"},
 		{[]string{"credit", "--data", dir, "--model", "linear", "--last", "7 days"}, 2, "last: invalid duration"},
 		{[]string{"credit", "--data", empty, "--model", "linear"}, 1, "not a touchledger data directory"},
@@ -136,6 +110,8 @@ func TestClearErrors(t *testing.T) {
 		{[]string{"credit", "--data", dir, "--nats", "nats://127.0.0.1:4222", "--model", "linear"}, 2, "--data and --nats exclude each other"},
 		{[]string{"frobnicate"}, 2, "unknown command"},
 		{[]string{"paths", "--data", dir}, 2, "level: is required"},
+		{[]string{"funnel", "--data", dir, "--frob"}, 2, "query funnel: frob: unknown parameter for funnel (funnel takes last, from, to)"},
+		{[]string{"credit", "--data", dir, "--model", "linear", "--timeout", "7 days"}, 2, "invalid duration"},
 	}
 	for _, c := range cases {
 		code, _, errOut := runCLI(c.args...)
@@ -178,5 +154,43 @@ func TestScorecardAndForget(t *testing.T) {
 	code, out, errOut = runCLI("forget", "--data", dir, "--user", "v0000001")
 	if code != 0 || !strings.Contains(out, "forgot v0000001") {
 		t.Errorf("forget: exit %d, %q %q", code, out, errOut)
+	}
+}
+
+// TestHelpPerCommand: each command's --help lists its own flags with
+// examples and none of another command's; --version works everywhere.
+func TestHelpPerCommand(t *testing.T) {
+	cases := []struct {
+		cmd       string
+		has, hasn []string
+	}{
+		{"credit", []string{"-model", "-order", "-by", "-last", "-from", "-to", "-chart", "Examples:", "query credit --data"}, []string{"-top", "-days", "-points", "-level", "-user"}},
+		{"shift", []string{"-model", "-days", "-chart"}, []string{"-last", "-from", "-top", "-level"}},
+		{"paths", []string{"-level", "-top", "-last"}, []string{"-model", "-order", "-days", "-chart"}},
+		{"alerts", []string{"-points", "-last"}, []string{"-model", "-level", "-chart"}},
+		{"forget", []string{"-user", "-nats"}, []string{"-model", "-last"}},
+	}
+	for _, c := range cases {
+		code, out, errOut := runCLI(c.cmd, "--help")
+		if code != 0 || errOut != "" {
+			t.Errorf("%s --help: exit %d, stderr %q", c.cmd, code, errOut)
+		}
+		for _, h := range c.has {
+			if !strings.Contains(out, "  "+h) && !strings.Contains(out, h) {
+				t.Errorf("%s --help does not show %s", c.cmd, h)
+			}
+		}
+		for _, h := range c.hasn {
+			if strings.Contains(out, "  "+h+" ") || strings.Contains(out, "  "+h+"\n") {
+				t.Errorf("%s --help shows %s, which %s does not take", c.cmd, h, c.cmd)
+			}
+		}
+		code, out, _ = runCLI(c.cmd, "--version")
+		if code != 0 || !strings.HasPrefix(out, "query ") {
+			t.Errorf("%s --version: exit %d, %q", c.cmd, code, out)
+		}
+	}
+	if code, out, _ := runCLI("--version"); code != 0 || !strings.HasPrefix(out, "query ") {
+		t.Errorf("--version: exit %d, %q", code, out)
 	}
 }

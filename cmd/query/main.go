@@ -174,7 +174,7 @@ func run(args []string, stdout, stderr io.Writer) int {
 		fs.Var(&textFlag{name: p.Name, given: given, bool: p.Bool}, p.Name, help)
 	}
 	fs.Usage = func() { commandUsage(fs, cmd, kind.Help()) }
-	if code, done := parse(fs, args, stderr); done {
+	if code, done := parse(fs, kind, args, stdout, stderr); done {
 		return code
 	}
 	if *version {
@@ -228,15 +228,31 @@ func run(args []string, stdout, stderr io.Writer) int {
 }
 
 // parse parses a command's flags; done reports that the command is over
-// (help shown, or a usage error) with its exit code.
-func parse(fs *flag.FlagSet, args []string, stderr io.Writer) (int, bool) {
-	if err := fs.Parse(args); err != nil {
-		if errors.Is(err, flag.ErrHelp) {
-			return cli.ExitOK, true
+// (help shown, or a usage error) with its exit code. A flag the command does
+// not take is refused naming it, in the words every surface uses for a
+// parameter a question does not take.
+func parse(fs *flag.FlagSet, kind query.Kind, args []string, stdout, stderr io.Writer) (int, bool) {
+	fs.SetOutput(io.Discard)
+	err := fs.Parse(args)
+	fs.SetOutput(stdout)
+	switch {
+	case errors.Is(err, flag.ErrHelp):
+		fs.Usage()
+		return cli.ExitOK, true
+	case err != nil:
+		msg := err.Error()
+		if name, ok := strings.CutPrefix(msg, "flag provided but not defined: -"); ok {
+			name = strings.TrimPrefix(name, "-")
+			msg = name + ": unknown flag (see " + fs.Name() + " --help)"
+			if kind != "" {
+				if _, perr := query.ParseRequest(kind, map[string]string{name: ""}); perr != nil && strings.HasPrefix(perr.Error(), name+": unknown parameter") {
+					msg = perr.Error()
+				}
+			}
 		}
-		return cli.ExitUsage, true // the flag package named the flag
-	}
-	if fs.NArg() > 0 {
+		fmt.Fprintf(stderr, "%s: %s\n", fs.Name(), msg)
+		return cli.ExitUsage, true
+	case fs.NArg() > 0:
 		fmt.Fprintf(stderr, "%s: unexpected argument %q (flags start with --)\n", fs.Name(), fs.Arg(0))
 		return cli.ExitUsage, true
 	}
@@ -344,7 +360,7 @@ func runForget(args []string, stdout, stderr io.Writer) int {
 	fs.Usage = func() {
 		commandUsage(fs, "forget", "erase a person: their stored session, journey and de-duplication state (aggregate counters hold no identifiers and stay); with --nats every running worker erases them and the owner of their partition purges their messages from the stream")
 	}
-	if code, done := parse(fs, args, stderr); done {
+	if code, done := parse(fs, "", args, stdout, stderr); done {
 		return code
 	}
 	if *version {

@@ -1,19 +1,13 @@
 package main
 
 import (
-	"bufio"
 	"bytes"
 	"context"
 	"encoding/json"
-	"fmt"
-	"hash/fnv"
-	"math"
 	"reflect"
 	"strings"
 	"testing"
-	"time"
 
-	"github.com/cespare/xxhash/v2"
 	"github.com/nats-io/nats-server/v2/server"
 	"github.com/nats-io/nats.go"
 	"github.com/nats-io/nats.go/micro"
@@ -24,70 +18,8 @@ import (
 	"github.com/touchledger/touchledger/internal/query"
 	"github.com/touchledger/touchledger/internal/remote"
 	"github.com/touchledger/touchledger/internal/state"
+	"github.com/touchledger/touchledger/internal/testsupport"
 )
-
-// partitionOf is nats-server's partition(16, token) applied to the user key
-// of the live subject layout: FNV-1a 32 of hex(xxhash64(user)), mod n
-// (nats-server server/subject_transform.go getHashPartition; the remote
-// package's tests check it against a running server).
-func partitionOf(user string, n int) int {
-	h := fnv.New32a()
-	fmt.Fprintf(h, "%016x", xxhash.Sum64String(user))
-	return int(h.Sum32() % uint32(n))
-}
-
-// replayInto replays the demo lines whose user is in partitions first..last
-// of 16 into a new data directory and closes it.
-func replayInto(t *testing.T, events []byte, first, last int) string {
-	t.Helper()
-	var part bytes.Buffer
-	sc := bufio.NewScanner(bytes.NewReader(events))
-	sc.Buffer(nil, 1<<20)
-	for sc.Scan() {
-		var e struct {
-			User string `json:"user"`
-		}
-		if err := json.Unmarshal(sc.Bytes(), &e); err != nil {
-			t.Fatal(err)
-		}
-		if p := partitionOf(e.User, 16); p >= first && p <= last {
-			part.Write(sc.Bytes())
-			part.WriteByte('\n')
-		}
-	}
-	dir := t.TempDir()
-	cfg := config.Default()
-	st, err := state.Open(context.Background(), pipeline.StoreOptions(dir, cfg))
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer st.Close()
-	p, err := pipeline.New(st, pipeline.FromConfig(cfg), nil, nil)
-	if err != nil {
-		t.Fatal(err)
-	}
-	if _, err := pipeline.Replay(context.Background(), p, "demo", &part, cfg.Limits.MaxPayload); err != nil {
-		t.Fatal(err)
-	}
-	if err := p.Close(); err != nil {
-		t.Fatal(err)
-	}
-	return dir
-}
-
-func startNATS(t *testing.T) *server.Server {
-	t.Helper()
-	s, err := server.NewServer(&server.Options{Host: "127.0.0.1", Port: -1, NoLog: true, NoSigs: true})
-	if err != nil {
-		t.Fatal(err)
-	}
-	go s.Start()
-	if !s.ReadyForConnections(5 * time.Second) {
-		t.Fatal("nats server did not start")
-	}
-	t.Cleanup(func() { s.Shutdown(); s.WaitForShutdown() })
-	return s
-}
 
 // startWorker opens dir and answers for partitions first..last on s.
 func startWorker(t *testing.T, s *server.Server, dir string, first, last int) micro.Service {
@@ -124,53 +56,11 @@ func newLive(t *testing.T) liveSetup {
 		t.Fatal(err)
 	}
 	events := buf.Bytes()
-	s := startNATS(t)
-	l := liveSetup{url: s.ClientURL(), full: replayInto(t, events, 0, 15)}
-	startWorker(t, s, replayInto(t, events, 0, 7), 0, 7)
-	l.hi = startWorker(t, s, replayInto(t, events, 8, 15), 8, 15)
+	s := testsupport.StartNATS(t, testsupport.NATSOptions{})
+	l := liveSetup{url: s.ClientURL(), full: testsupport.ReplayDir(t, config.Default(), testsupport.SplitByPartition(t, events, 16, 0, 15))}
+	startWorker(t, s, testsupport.ReplayDir(t, config.Default(), testsupport.SplitByPartition(t, events, 16, 0, 7)), 0, 7)
+	l.hi = startWorker(t, s, testsupport.ReplayDir(t, config.Default(), testsupport.SplitByPartition(t, events, 16, 8, 15)), 8, 15)
 	return l
-}
-
-// closeJSON compares JSON values, numbers to 1e-9 relative: Markov and
-// Shapley add floats in map order, so even one store asked twice differs in
-// the last bits.
-func closeJSON(a, b string) bool {
-	var x, y any
-	if json.Unmarshal([]byte(a), &x) != nil || json.Unmarshal([]byte(b), &y) != nil {
-		return false
-	}
-	var eq func(x, y any) bool
-	eq = func(x, y any) bool {
-		switch xv := x.(type) {
-		case float64:
-			yv, ok := y.(float64)
-			return ok && math.Abs(xv-yv) <= 1e-9*math.Max(1, math.Max(math.Abs(xv), math.Abs(yv)))
-		case []any:
-			yv, ok := y.([]any)
-			if !ok || len(xv) != len(yv) {
-				return false
-			}
-			for i := range xv {
-				if !eq(xv[i], yv[i]) {
-					return false
-				}
-			}
-			return true
-		case map[string]any:
-			yv, ok := y.(map[string]any)
-			if !ok || len(xv) != len(yv) {
-				return false
-			}
-			for k := range xv {
-				if !eq(xv[k], yv[k]) {
-					return false
-				}
-			}
-			return true
-		}
-		return reflect.DeepEqual(x, y)
-	}
-	return eq(x, y)
 }
 
 var liveCommands = [][]string{
@@ -206,7 +96,7 @@ func TestNATSAnswersEqualDataDirectory(t *testing.T) {
 			}
 			same := got == want
 			if f == "json" {
-				same = closeJSON(got, want)
+				same = testsupport.CloseJSON(got, want)
 			} else if dataDriven {
 				continue // full-precision floats: compared in JSON
 			}
@@ -228,13 +118,16 @@ func TestNATSPartialAnswerIsMarked(t *testing.T) {
 		t.Fatal(err)
 	}
 	const warning = "partial answer: partitions 8-15 did not answer"
+	// Without --config the answer uses the configuration the workers
+	// announced, and says so.
+	const cfgNote = "query: configuration announced by the workers\n"
 	base := []string{"credit", "--model", "linear", "--last", "7d", "--nats", l.url, "--timeout", "300ms"}
 	cases := []struct {
 		format, firstLine, stderr string
 	}{
-		{"table", warning, ""},
-		{"csv", "# " + warning, ""},
-		{"json", "{", "query credit: " + warning + "\n"},
+		{"table", warning, cfgNote},
+		{"csv", "# " + warning, cfgNote},
+		{"json", "{", cfgNote + "query credit: " + warning + "\n"},
 	}
 	for _, c := range cases {
 		code, out, errOut := runCLI(append(base, "--format", c.format)...)
@@ -268,8 +161,8 @@ func TestNATSPartialAnswerIsMarked(t *testing.T) {
 
 // TestNATSErrors: unreachable server, nobody answering, bad flags.
 func TestNATSErrors(t *testing.T) {
-	s := startNATS(t)     // no workers
-	empty := startNATS(t) // one worker that has committed nothing
+	s := testsupport.StartNATS(t, testsupport.NATSOptions{})     // no workers
+	empty := testsupport.StartNATS(t, testsupport.NATSOptions{}) // one worker that has committed nothing
 	startWorker(t, empty, t.TempDir(), 0, 7)
 	cases := []struct {
 		args []string

@@ -1,14 +1,9 @@
 package remote
 
 import (
-	"bufio"
-	"bytes"
-	"context"
 	"encoding/json"
 	"errors"
 	"fmt"
-	"hash/fnv"
-	"math"
 	"reflect"
 	"slices"
 	"strconv"
@@ -16,38 +11,17 @@ import (
 	"testing"
 	"time"
 
-	"github.com/cespare/xxhash/v2"
 	"github.com/nats-io/nats-server/v2/server"
 	"github.com/nats-io/nats.go"
 	"github.com/nats-io/nats.go/micro"
 
-	"github.com/touchledger/touchledger/demo/shop"
 	"github.com/touchledger/touchledger/internal/config"
 	"github.com/touchledger/touchledger/internal/credit"
-	"github.com/touchledger/touchledger/internal/pipeline"
 	"github.com/touchledger/touchledger/internal/query"
 	"github.com/touchledger/touchledger/internal/state"
 	"github.com/touchledger/touchledger/internal/tally"
+	"github.com/touchledger/touchledger/internal/testsupport"
 )
-
-// startNATS runs an embedded server on loopback (request/reply only) with the
-// partition mapping of the live subject layout.
-func startNATS(t testing.TB, maxPayload int32) *server.Server {
-	t.Helper()
-	s, err := server.NewServer(&server.Options{Host: "127.0.0.1", Port: -1, NoLog: true, NoSigs: true, MaxPayload: maxPayload})
-	if err != nil {
-		t.Fatal(err)
-	}
-	if err := s.GlobalAccount().AddMapping("tl.in.*.*", "tl.ev.{{partition(16,2)}}.{{wildcard(1)}}.{{wildcard(2)}}"); err != nil {
-		t.Fatal(err)
-	}
-	go s.Start()
-	if !s.ReadyForConnections(5 * time.Second) {
-		t.Fatal("nats server did not start")
-	}
-	t.Cleanup(func() { s.Shutdown(); s.WaitForShutdown() })
-	return s
-}
 
 func connect(t testing.TB, s *server.Server) *nats.Conn {
 	t.Helper()
@@ -57,79 +31,6 @@ func connect(t testing.TB, s *server.Server) *nats.Conn {
 	}
 	t.Cleanup(nc.Close)
 	return nc
-}
-
-// userKey is the subject-safe user key of the live layout: lowercase hex of
-// xxhash64(user), 16 characters.
-func userKey(user string) string { return fmt.Sprintf("%016x", xxhash.Sum64String(user)) }
-
-// partitionOf is what nats-server's partition(16, token) computes: FNV-1a
-// (32 bit) of the token, modulo the partition count (nats-server
-// server/subject_transform.go, getHashPartition; checked against the server
-// itself in TestPartitionRuleMatchesServer).
-func partitionOf(user string, n int) int {
-	h := fnv.New32a()
-	h.Write([]byte(userKey(user)))
-	return int(h.Sum32() % uint32(n))
-}
-
-// demoEvents is a small, fixed-seed demo world (invented data).
-func demoEvents(t testing.TB) []byte {
-	t.Helper()
-	c := shop.DefaultConfig()
-	c.Visitors, c.Days, c.ShiftDay, c.IncidentDay = 2000, 7, 3, 5
-	var buf bytes.Buffer
-	if _, err := shop.Generate(&buf, c); err != nil {
-		t.Fatal(err)
-	}
-	return buf.Bytes()
-}
-
-// splitByPartition keeps the lines whose user falls in partitions
-// first..last of 16.
-func splitByPartition(t testing.TB, events []byte, first, last int) []byte {
-	t.Helper()
-	var out bytes.Buffer
-	sc := bufio.NewScanner(bytes.NewReader(events))
-	sc.Buffer(nil, 1<<20)
-	for sc.Scan() {
-		var e struct {
-			User string `json:"user"`
-		}
-		if err := json.Unmarshal(sc.Bytes(), &e); err != nil {
-			t.Fatal(err)
-		}
-		if p := partitionOf(e.User, 16); p >= first && p <= last {
-			out.Write(sc.Bytes())
-			out.WriteByte('\n')
-		}
-	}
-	if err := sc.Err(); err != nil {
-		t.Fatal(err)
-	}
-	return out.Bytes()
-}
-
-// replayStore replays events into a new store and leaves it open.
-func replayStore(t testing.TB, cfg config.Config, events []byte) *state.Store {
-	t.Helper()
-	ctx := context.Background()
-	st, err := state.Open(ctx, pipeline.StoreOptions(t.TempDir(), cfg))
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { st.Close() })
-	p, err := pipeline.New(st, pipeline.FromConfig(cfg), nil, nil)
-	if err != nil {
-		t.Fatal(err)
-	}
-	if _, err := pipeline.Replay(ctx, p, "demo", bytes.NewReader(events), cfg.Limits.MaxPayload); err != nil {
-		t.Fatal(err)
-	}
-	if err := p.Close(); err != nil {
-		t.Fatal(err)
-	}
-	return st
 }
 
 // cluster is a single store holding every event, the same events split over
@@ -145,11 +46,11 @@ type cluster struct {
 func newCluster(t testing.TB) *cluster {
 	t.Helper()
 	cfg := config.Default()
-	events := demoEvents(t)
-	c := &cluster{cfg: cfg, srv: startNATS(t, 0)}
-	c.full = replayStore(t, cfg, events)
-	c.lo = replayStore(t, cfg, splitByPartition(t, events, 0, 7))
-	c.hi = replayStore(t, cfg, splitByPartition(t, events, 8, 15))
+	events := testsupport.DemoEvents(t)
+	c := &cluster{cfg: cfg, srv: testsupport.StartNATS(t, testsupport.NATSOptions{MaxPayload: 0, Partitions: 16})}
+	c.full = testsupport.Replay(t, t.TempDir(), cfg, events)
+	c.lo = testsupport.Replay(t, t.TempDir(), cfg, testsupport.SplitByPartition(t, events, 16, 0, 7))
+	c.hi = testsupport.Replay(t, t.TempDir(), cfg, testsupport.SplitByPartition(t, events, 16, 8, 15))
 	res := c.full.Resolutions()
 	var err error
 	// Each worker has its own connection, as separate processes would.
@@ -236,51 +137,10 @@ func allAnswers(t *testing.T, q *query.Querier) map[string]string {
 	return out
 }
 
-// sameJSON compares two JSON texts; numbers may differ by 1e-9 relative,
-// since the models add floats in map order (integer inputs are identical).
-func sameJSON(a, b string) bool {
-	var x, y any
-	if json.Unmarshal([]byte(a), &x) != nil || json.Unmarshal([]byte(b), &y) != nil {
-		return false
-	}
-	return closeEnough(x, y)
-}
-
-func closeEnough(x, y any) bool {
-	switch xv := x.(type) {
-	case float64:
-		yv, ok := y.(float64)
-		return ok && math.Abs(xv-yv) <= 1e-9*math.Max(1, math.Max(math.Abs(xv), math.Abs(yv)))
-	case []any:
-		yv, ok := y.([]any)
-		if !ok || len(xv) != len(yv) {
-			return false
-		}
-		for i := range xv {
-			if !closeEnough(xv[i], yv[i]) {
-				return false
-			}
-		}
-		return true
-	case map[string]any:
-		yv, ok := y.(map[string]any)
-		if !ok || len(xv) != len(yv) {
-			return false
-		}
-		for k := range xv {
-			if !closeEnough(xv[k], yv[k]) {
-				return false
-			}
-		}
-		return true
-	}
-	return reflect.DeepEqual(x, y)
-}
-
 // TestPartitionRuleMatchesServer: the split used by these tests is the one
 // the server's subject mapping applies to live events.
 func TestPartitionRuleMatchesServer(t *testing.T) {
-	s := startNATS(t, 0)
+	s := testsupport.StartNATS(t, testsupport.NATSOptions{MaxPayload: 0, Partitions: 16})
 	nc := connect(t, s)
 	sub, err := nc.SubscribeSync("tl.ev.>")
 	if err != nil {
@@ -288,7 +148,7 @@ func TestPartitionRuleMatchesServer(t *testing.T) {
 	}
 	for i := range 40 {
 		user := "visitor-" + strconv.Itoa(i)
-		if err := nc.Publish("tl.in.touch."+userKey(user), nil); err != nil {
+		if err := nc.Publish("tl.in.touch."+testsupport.UserKey(user), nil); err != nil {
 			t.Fatal(err)
 		}
 		m, err := sub.NextMsg(2 * time.Second)
@@ -296,7 +156,7 @@ func TestPartitionRuleMatchesServer(t *testing.T) {
 			t.Fatal(err)
 		}
 		got := strings.Split(m.Subject, ".")[2]
-		if want := strconv.Itoa(partitionOf(user, 16)); got != want {
+		if want := strconv.Itoa(testsupport.PartitionOf(user, 16)); got != want {
 			t.Errorf("%s: server put it in partition %s, partitionOf says %s", user, got, want)
 		}
 	}
@@ -321,7 +181,7 @@ func TestMergedAnswersEqualOneStore(t *testing.T) {
 	got := allAnswers(t, q)
 	want := allAnswers(t, localQuerier(t, c.full, c.cfg))
 	for name, w := range want {
-		if !sameJSON(got[name], w) {
+		if !testsupport.CloseJSON(got[name], w) {
 			t.Errorf("%s:\n got %s\nwant %s", name, got[name], w)
 		}
 	}
@@ -355,13 +215,13 @@ func TestStoppedWorkerGivesMarkedPartialAnswer(t *testing.T) {
 	got := allAnswers(t, q)
 	want := allAnswers(t, localQuerier(t, c.lo, c.cfg))
 	for name, w := range want {
-		if !sameJSON(got[name], w) {
+		if !testsupport.CloseJSON(got[name], w) {
 			t.Errorf("%s:\n got %s\nwant %s", name, got[name], w)
 		}
 	}
 	// And it is not the whole answer.
 	full := allAnswers(t, localQuerier(t, c.full, c.cfg))
-	if sameJSON(got["status"], full["status"]) {
+	if testsupport.CloseJSON(got["status"], full["status"]) {
 		t.Errorf("half the partitions gave the whole status: %s", got["status"])
 	}
 }
@@ -384,7 +244,7 @@ func fakeWorker(t testing.TB, nc *nats.Conn, r LatestReply) {
 // TestDiscoveryErrors: nobody listening, overlapping ranges, a range beyond
 // the partition count, different resolutions.
 func TestDiscoveryErrors(t *testing.T) {
-	s := startNATS(t, 0)
+	s := testsupport.StartNATS(t, testsupport.NATSOptions{MaxPayload: 0, Partitions: 16})
 	res := state.DefaultOptions("x").Resolutions
 	wire := wireResolutions(res)
 	cases := []struct {
@@ -425,7 +285,7 @@ func TestDiscoveryErrors(t *testing.T) {
 // TestRequestTimeout: a worker that answers discovery but not the sum
 // request makes the answer fail with a timeout naming its partitions.
 func TestRequestTimeout(t *testing.T) {
-	s := startNATS(t, 0)
+	s := testsupport.StartNATS(t, testsupport.NATSOptions{MaxPayload: 0, Partitions: 16})
 	fakeWorker(t, connect(t, s), LatestReply{First: 0, Last: 15, HasData: true, LatestNanos: 1, Resolutions: wireResolutions(state.DefaultOptions("x").Resolutions)})
 	hang, err := connect(t, s).Subscribe(SumSubject("tl", 0, 15), func(*nats.Msg) {})
 	if err != nil {
@@ -456,8 +316,8 @@ func TestRequestTimeout(t *testing.T) {
 // discovery.
 func TestServiceErrors(t *testing.T) {
 	cfg := config.Default()
-	s := startNATS(t, 4096)
-	st := replayStore(t, cfg, demoEvents(t))
+	s := testsupport.StartNATS(t, testsupport.NATSOptions{MaxPayload: 4096, Partitions: 16})
+	st := testsupport.Replay(t, t.TempDir(), cfg, testsupport.DemoEvents(t))
 	svc, err := Register(connect(t, s), "tl", 0, 15, st, st.Resolutions(), query.ParamsFrom(config.Default()))
 	if err != nil {
 		t.Fatal(err)
@@ -512,9 +372,9 @@ func TestServiceErrors(t *testing.T) {
 // TestRegisterChecks: bad arguments are refused before anything is
 // subscribed.
 func TestRegisterChecks(t *testing.T) {
-	s := startNATS(t, 0)
+	s := testsupport.StartNATS(t, testsupport.NATSOptions{MaxPayload: 0, Partitions: 16})
 	nc := connect(t, s)
-	st := replayStore(t, config.Default(), nil)
+	st := testsupport.Replay(t, t.TempDir(), config.Default(), nil)
 	res := st.Resolutions()
 	cases := []struct {
 		name        string
