@@ -194,7 +194,9 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 	// Metrics and HTTP.
 	reg := prometheus.NewRegistry()
 	reg.MustRegister(collectors.NewGoCollector(), collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}))
+	version, revision, goVersion := cli.Build()
 	mopts := metrics.Options{
+		Build:          metrics.BuildInfo{Version: version, Revision: revision, GoVersion: goVersion},
 		Status:         p,
 		OpenQuerier:    openQuerier,
 		ConsumerLag:    w.Lag,

@@ -46,6 +46,28 @@ func (d Duration) Set(s string) error {
 	return nil
 }
 
+// Build reads the module version, VCS revision (with "-modified" when the
+// working tree had changes) and Go version from the build information.
+func Build() (version, revision, goVersion string) {
+	info, ok := debug.ReadBuildInfo()
+	if !ok {
+		return "", "", ""
+	}
+	modified := false
+	for _, s := range info.Settings {
+		switch s.Key {
+		case "vcs.revision":
+			revision = s.Value
+		case "vcs.modified":
+			modified = s.Value == "true"
+		}
+	}
+	if modified && revision != "" {
+		revision += "-modified"
+	}
+	return info.Main.Version, revision, info.GoVersion
+}
+
 // Version is the version line of a command: its module version and VCS
 // revision from the build information, e.g. "query v0.3.1 (rev 1a2b3c4,
 // modified)"; "(devel)" when built from a working tree without a version.

@@ -87,6 +87,17 @@ type Options struct {
 	CommitBuckets []float64
 	// Now is the wall clock for the watermark delay. Default time.Now.
 	Now func() time.Time
+	// Build labels the touchledger_build_info gauge (always 1): what binary
+	// serves these metrics. Empty fields read "unknown".
+	Build BuildInfo
+}
+
+// BuildInfo names the running binary (cli.Build reads it from the Go build
+// information).
+type BuildInfo struct {
+	Version   string // module version, "(devel)" for a working tree
+	Revision  string // VCS revision
+	GoVersion string
 }
 
 // withDefaults fills zero values.
@@ -209,7 +220,18 @@ func New(reg prometheus.Registerer, opts Options) *Metrics {
 			Buckets:   opts.CommitBuckets,
 		}),
 	}
-	reg.MustRegister(m)
+	b := opts.Build
+	for _, f := range []*string{&b.Version, &b.Revision, &b.GoVersion} {
+		if *f == "" {
+			*f = "unknown"
+		}
+	}
+	reg.MustRegister(m, prometheus.NewGaugeFunc(prometheus.GaugeOpts{
+		Namespace:   Namespace,
+		Name:        "build_info",
+		Help:        "Always 1; the labels name the running binary's module version, VCS revision and Go version.",
+		ConstLabels: prometheus.Labels{"version": b.Version, "revision": b.Revision, "goversion": b.GoVersion},
+	}, func() float64 { return 1 }))
 	return m
 }
 

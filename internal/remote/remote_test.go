@@ -457,3 +457,47 @@ func BenchmarkCreditQuery(b *testing.B) {
 		}
 	})
 }
+
+// TestWorkersAnnounceConfiguration: discovery carries each worker's
+// query configuration and resolutions; equal ones are used, different
+// ones are reported naming the ranges and the settings, none (old
+// workers) is ErrNoConfig. The rules are this package's (Source.Config).
+func TestWorkersAnnounceConfiguration(t *testing.T) {
+	s := testsupport.StartNATS(t, testsupport.NATSOptions{})
+	wire := wireResolutions(state.DefaultOptions("x").Resolutions)
+	base := query.ParamsFrom(config.Default())
+	other := base
+	other.FunnelSteps = []string{"product_view", "order"}
+	other.AlertStep = "product_view"
+	cases := []struct {
+		name   string
+		lo, hi *query.Params
+		want   string // "" = the configuration is base
+	}{
+		{"same", &base, &base, ""},
+		{"different", &base, &other, "partitions 0-7 and 8-15 differ in alert_step, funnel_steps"},
+		{"old workers", nil, nil, ErrNoConfig.Error()},
+	}
+	for _, c := range cases {
+		nc := connect(t, s)
+		fakeWorker(t, nc, LatestReply{First: 0, Last: 7, Resolutions: wire, Params: c.lo})
+		nc2 := connect(t, s)
+		fakeWorker(t, nc2, LatestReply{First: 8, Last: 15, Resolutions: wire, Params: c.hi})
+		src, err := NewSource(connect(t, s), Options{Timeout: 2 * time.Second})
+		if err != nil {
+			t.Fatalf("%s: %v", c.name, err)
+		}
+		if got := src.Resolutions(); !slices.Equal(wireResolutions(got), wire) {
+			t.Errorf("%s: resolutions %v, want the announced %v", c.name, got, wire)
+		}
+		p, err := src.Config()
+		switch {
+		case c.want == "" && (err != nil || !reflect.DeepEqual(p, base)):
+			t.Errorf("%s: config %+v, %v; want the announced one", c.name, p, err)
+		case c.want != "" && (err == nil || !strings.Contains(err.Error(), c.want)):
+			t.Errorf("%s: error %v, want one mentioning %q", c.name, err, c.want)
+		}
+		nc.Close()
+		nc2.Close()
+	}
+}

@@ -60,7 +60,8 @@ func newFixture(t *testing.T, opts web.Options) *fixture {
 	if f.proc, err = pipeline.New(f.store, pc, rejects, nil); err != nil {
 		t.Fatal(err)
 	}
-	m = metrics.New(f.reg, metrics.Options{Status: f.proc, OpenQuerier: f.open, MaxChannels: 4})
+	m = metrics.New(f.reg, metrics.Options{Status: f.proc, OpenQuerier: f.open, MaxChannels: 4,
+		Build: metrics.BuildInfo{Version: "v1.2.3", Revision: "0123abc", GoVersion: "go1.26.8"}})
 	if f.cp, err = pipeline.Replay(context.Background(), f.proc, "demo.jsonl", &buf, f.cfg.Limits.MaxPayload); err != nil {
 		t.Fatal(err)
 	}

@@ -519,6 +519,8 @@ func TestMetricsScrape(t *testing.T) {
 		{"touchledger_events_total", "outcome", "late", c.Late},
 		{"touchledger_events_total", "outcome", "rejected", c.RejectedTotal()},
 		{"touchledger_rejects_total", "reason", "bad_json", c.Rejected[event.ReasonBadJSON]},
+		{"touchledger_build_info", "version", "v1.2.3", 1},
+		{"touchledger_build_info", "revision", "0123abc", 1},
 	}
 	for _, k := range cases {
 		if got := value(k.name, k.label, k.value); got != float64(k.want) {
