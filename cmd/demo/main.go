@@ -15,6 +15,7 @@ import (
 	"time"
 
 	"github.com/touchledger/touchledger/demo/shop"
+	"github.com/touchledger/touchledger/internal/cli"
 )
 
 const usage = `demo writes an invented online shop's events as JSON lines, one event per line,
@@ -70,11 +71,16 @@ func run(args []string, stdout, stderr io.Writer) error {
 	fs.IntVar(&o.incidentDay, "incident-day", -1, "day (0-based) of the 40-minute checkout outage at 15:00 UTC; -1 means days*5/7")
 	fs.StringVar(&o.off, "off", "", "comma-separated `CHANNELS` to switch off (what-if runs); one of "+strings.Join(shop.Channels(), ", "))
 	fs.StringVar(&o.truth, "truth", "", "also write the true incremental conversions per channel as JSON to `FILE`")
+	version := cli.AddVersion(fs)
 	if err := fs.Parse(args); err != nil {
 		return err
 	}
 	if fs.NArg() > 0 {
 		return fmt.Errorf("unexpected argument %q (see --help)", fs.Arg(0))
+	}
+	if *version {
+		fmt.Fprintln(stdout, cli.Version("demo"))
+		return nil
 	}
 	c, err := o.config(def)
 	if err != nil {

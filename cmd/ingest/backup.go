@@ -11,6 +11,7 @@ import (
 	"path/filepath"
 	"time"
 
+	"github.com/touchledger/touchledger/internal/cli"
 	"github.com/touchledger/touchledger/internal/config"
 	"github.com/touchledger/touchledger/internal/pipeline"
 	"github.com/touchledger/touchledger/internal/state"
@@ -51,12 +52,17 @@ func runBackup(args []string, stdout, stderr io.Writer) int {
 	dir := fs.String("data", "", "data `directory` of a stopped worker")
 	out := fs.String("out", "", "backup `file` to write")
 	cfgPath := fs.String("config", "", "configuration `file` the directory was written with")
+	version := cli.AddVersion(fs)
 	fs.Usage = func() { fmt.Fprint(stderr, backupUsage); fs.PrintDefaults() }
 	if err := fs.Parse(args); err != nil {
 		if errors.Is(err, flag.ErrHelp) {
 			return 0
 		}
 		return 2
+	}
+	if *version {
+		fmt.Fprintln(stdout, cli.Version("ingest backup"))
+		return 0
 	}
 	if *out == "" || (*from == "") == (*dir == "") {
 		fmt.Fprintln(stderr, "ingest backup: --out and exactly one of --from or --data are required (see --help)")
@@ -154,12 +160,17 @@ func runRestore(args []string, stdout, stderr io.Writer) int {
 	in := fs.String("in", "", "backup `file` to read")
 	dir := fs.String("data", "", "data `directory` to create")
 	cfgPath := fs.String("config", "", "configuration `file` of the worker that will use it")
+	version := cli.AddVersion(fs)
 	fs.Usage = func() { fmt.Fprint(stderr, restoreUsage); fs.PrintDefaults() }
 	if err := fs.Parse(args); err != nil {
 		if errors.Is(err, flag.ErrHelp) {
 			return 0
 		}
 		return 2
+	}
+	if *version {
+		fmt.Fprintln(stdout, cli.Version("ingest restore"))
+		return 0
 	}
 	if *in == "" || *dir == "" {
 		fmt.Fprintln(stderr, "ingest restore: --in and --data are required (see --help)")

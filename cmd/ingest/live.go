@@ -48,26 +48,6 @@ type liveFlags struct {
 	reportWindow   time.Duration
 }
 
-// durationFlag is a flag taking the configuration's duration syntax
-// ("30m", "7d", "1d12h", "0").
-type durationFlag struct{ d *time.Duration }
-
-func (f durationFlag) String() string {
-	if f.d == nil {
-		return ""
-	}
-	return config.Duration(*f.d).String()
-}
-
-func (f durationFlag) Set(s string) error {
-	d, err := config.ParseDuration(s)
-	if err != nil {
-		return err
-	}
-	*f.d = d
-	return nil
-}
-
 func addLiveFlags(fs *flag.FlagSet, l *liveFlags) {
 	l.scfg = stream.DefaultConfig()
 	l.nats = cli.AddNATS(fs, "", "NATS server `url`s (comma-separated) to consume from; default: start an embedded server")
@@ -78,19 +58,19 @@ func addLiveFlags(fs *flag.FlagSet, l *liveFlags) {
 	fs.StringVar(&l.scfg.Stream, "stream", l.scfg.Stream, "events stream `name`")
 	fs.StringVar(&l.scfg.DeadStream, "dead-stream", l.scfg.DeadStream, "dead-letter stream `name`")
 	fs.IntVar(&l.scfg.Replicas, "replicas", l.scfg.Replicas, "stream `replicas` (3 on a three-node cluster)")
-	fs.DurationVar(&l.scfg.MaxAge, "max-age", l.scfg.MaxAge, "how long the streams keep messages")
-	fs.DurationVar(&l.scfg.Duplicates, "dedup-window", l.scfg.Duplicates, "the events stream's de-duplication window for message ids")
-	fs.DurationVar(&l.scfg.QuietAfter, "quiet-after", l.scfg.QuietAfter, "event time follows the wall clock once no message arrived for this long")
-	fs.DurationVar(&l.scfg.WatchdogTimeout, "watchdog", l.scfg.WatchdogTimeout, "flag the consumer stalled after this long without deliveries while messages are pending")
+	cli.DurationVar(fs, &l.scfg.MaxAge, "max-age", l.scfg.MaxAge, "how long the streams keep messages")
+	cli.DurationVar(fs, &l.scfg.Duplicates, "dedup-window", l.scfg.Duplicates, "the events stream's de-duplication window for message ids")
+	cli.DurationVar(fs, &l.scfg.QuietAfter, "quiet-after", l.scfg.QuietAfter, "event time follows the wall clock once no message arrived for this long")
+	cli.DurationVar(fs, &l.scfg.WatchdogTimeout, "watchdog", l.scfg.WatchdogTimeout, "flag the consumer stalled after this long without deliveries while messages are pending")
 	fs.StringVar(&l.httpAddr, "http", web.DefaultAddr, "`address` for /metrics, /healthz, /readyz and /api/ (\"off\" disables; port 0 = any free port)")
 	fs.StringVar(&l.httpToken, "http-token", "", "bearer `token` required on HTTP (default $TL_HTTP_TOKEN; needed to listen beyond loopback)")
 	fs.StringVar(&l.logFormat, "log-format", "text", "log `format` on standard error: text or json")
-	fs.DurationVar(&l.shutdownWait, "shutdown-timeout", 10*time.Second, "longest wait for HTTP requests when stopping")
+	cli.DurationVar(fs, &l.shutdownWait, "shutdown-timeout", 10*time.Second, "longest wait for HTTP requests when stopping")
 	l.reportInterval, l.reportWindow = feed.DefaultReportInterval, feed.DefaultReportWindow
 	l.maintenance = time.Hour
-	fs.Var(durationFlag{&l.maintenance}, "maintenance", "drop counter buckets past their retention and reclaim disk space this often (0 disables)")
-	fs.Var(durationFlag{&l.reportInterval}, "report-interval", "publish a credit snapshot per model to <prefix>.report.credit this often (0 disables)")
-	fs.Var(durationFlag{&l.reportWindow}, "report-window", "rolling `window` of the credit snapshots, ending at the latest event")
+	fs.Var(cli.Duration{D: &l.maintenance}, "maintenance", "drop counter buckets past their retention and reclaim disk space this often (0 disables)")
+	fs.Var(cli.Duration{D: &l.reportInterval}, "report-interval", "publish a credit snapshot per model to <prefix>.report.credit this often (0 disables)")
+	fs.Var(cli.Duration{D: &l.reportWindow}, "report-window", "rolling `window` of the credit snapshots, ending at the latest event")
 }
 
 // runLive is live mode: consume the stream into dir until ctx ends.

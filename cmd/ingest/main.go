@@ -22,6 +22,7 @@ import (
 	"syscall"
 	"time"
 
+	"github.com/touchledger/touchledger/internal/cli"
 	"github.com/touchledger/touchledger/internal/config"
 	"github.com/touchledger/touchledger/internal/pipeline"
 	"github.com/touchledger/touchledger/internal/state"
@@ -126,6 +127,7 @@ func run(args []string, stdout, stderr io.Writer) int {
 		configPath  = fs.String("config", "", "YAML configuration `file` (defaults apply without it)")
 		printConfig = fs.Bool("print-config", false, "print the effective configuration and exit")
 		verbose     = fs.Bool("v", false, "log commits and progress to standard error")
+		version     = cli.AddVersion(fs)
 		live        liveFlags
 	)
 	addLiveFlags(fs, &live)
@@ -142,6 +144,10 @@ func run(args []string, stdout, stderr io.Writer) int {
 	if fs.NArg() > 0 {
 		fmt.Fprintf(stderr, "ingest: unexpected argument %q (see --help)\n", fs.Arg(0))
 		return 2
+	}
+	if *version {
+		fmt.Fprintln(stdout, cli.Version("ingest"))
+		return 0
 	}
 	cfg := config.Default()
 	if *configPath != "" {

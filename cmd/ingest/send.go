@@ -48,6 +48,7 @@ func runSend(args []string, stdout, stderr io.Writer) int {
 	fs.Float64Var(&o.Rate, "rate", 0, "publish at most this many `events` per second (0 = as fast as the stream acknowledges)")
 	fs.IntVar(&o.MaxInFlight, "max-in-flight", o.MaxInFlight, "most `messages` published and not yet acknowledged")
 	cfgPath := fs.String("config", "", "configuration `file`: with privacy.key_file (or $TOUCHLEDGER_KEY_FILE) subjects carry the pseudonym's key, not the raw id's")
+	version := cli.AddVersion(fs)
 	fs.Usage = func() {
 		fmt.Fprint(stderr, sendUsage)
 		fs.PrintDefaults()
@@ -57,6 +58,10 @@ func runSend(args []string, stdout, stderr io.Writer) int {
 			return 0
 		}
 		return 2
+	}
+	if *version {
+		fmt.Fprintln(stdout, cli.Version("ingest send"))
+		return 0
 	}
 	if fs.NArg() != 1 {
 		fmt.Fprintln(stderr, "ingest send: give one FILE (or - for standard input); see --help")

@@ -46,6 +46,12 @@ func (d Duration) Set(s string) error {
 	return nil
 }
 
+// AddVersion registers --version on fs; when it is set after parsing, the
+// command prints Version(cmd) and exits 0.
+func AddVersion(fs *flag.FlagSet) *bool {
+	return fs.Bool("version", false, "print the version (module version and VCS revision) and exit")
+}
+
 // Build reads the module version, VCS revision (with "-modified" when the
 // working tree had changes) and Go version from the build information.
 func Build() (version, revision, goVersion string) {
