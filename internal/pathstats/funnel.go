@@ -22,12 +22,12 @@ func FunnelDepth(actions []string, steps []string) int {
 	return depth
 }
 
-// AddDepth counts one session that reached depth steps into reached, the
-// per-step session counts of an in-order funnel: reached[i]++ for every
+// AddDepth counts n sessions that reached depth steps into reached, the
+// per-step session counts of an in-order funnel: reached[i] += n for every
 // i < depth. depth beyond len(reached) counts every step.
-func AddDepth(reached []int64, depth int) {
+func AddDepth(reached []int64, depth int, n int64) {
 	for i := range min(depth, len(reached)) {
-		reached[i]++
+		reached[i] += n
 	}
 }
 

@@ -92,7 +92,7 @@ func TestFunnelExample(t *testing.T) {
 	}
 	reached := make([]int64, len(shopSteps))
 	for _, s := range sessions {
-		AddDepth(reached, FunnelDepth(s, shopSteps))
+		AddDepth(reached, FunnelDepth(s, shopSteps), 1)
 	}
 	if want := []int64{1000, 300, 150, 120, 90}; !slices.Equal(reached, want) {
 		t.Fatalf("reached = %v, want %v", reached, want)
@@ -130,10 +130,10 @@ func TestAbandonmentEdges(t *testing.T) {
 		})
 	}
 	reached := make([]int64, 3)
-	AddDepth(reached, 7) // deeper than the funnel counts every step
-	AddDepth(reached, 0)
-	AddDepth(reached, 2)
-	if want := []int64{2, 2, 1}; !slices.Equal(reached, want) {
+	AddDepth(reached, 7, 1) // deeper than the funnel counts every step
+	AddDepth(reached, 0, 5)
+	AddDepth(reached, 2, 3)
+	if want := []int64{4, 4, 1}; !slices.Equal(reached, want) {
 		t.Errorf("AddDepth counts = %v, want %v", reached, want)
 	}
 }

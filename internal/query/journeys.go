@@ -464,23 +464,20 @@ func Funnel(steps []string, plan Plan, t tally.Table) FunnelAnswer {
 			continue
 		}
 		a.Sessions += v[0]
-		for i := 0; i < d && i < len(steps); i++ {
-			reached[i] += v[0]
-		}
+		pathstats.AddDepth(reached, d, v[0])
 		basket += v[1]
 		basketConv += v[2]
 	}
+	abandon := pathstats.StepAbandonment(reached)
 	for i, s := range steps {
 		st := FunnelStep{Step: s, Sessions: reached[i]}
-		if i+1 < len(steps) && reached[i] > 0 {
-			st.Abandonment = 1 - float64(reached[i+1])/float64(reached[i])
+		if i < len(abandon) {
+			st.Abandonment = abandon[i]
 		}
 		a.Steps = append(a.Steps, st)
 	}
 	a.BasketSessions = basket
-	if basket > 0 {
-		a.BasketAbandonment = float64(basket-basketConv) / float64(basket)
-	}
+	a.BasketAbandonment = pathstats.Abandonment(basket, basketConv)
 	if len(steps) > 0 && reached[0] > 0 {
 		a.OverallConversion = float64(reached[len(steps)-1]) / float64(reached[0])
 	}

@@ -192,9 +192,6 @@ func FamilyResolutions(rs []Resolution, f tally.Family) []int {
 // Limits returns the largest commit Badger accepts: bytes and entries.
 func (s *Store) Limits() (bytes, entries int64) { return s.db.MaxBatchSize(), s.db.MaxBatchCount() }
 
-// DB exposes the Badger handle for maintenance (backup, GC).
-func (s *Store) DB() *badger.DB { return s.db }
-
 // formatVersion is the first byte of the "format" meta key. Version 2 names
 // the states the tool adds @entry, @converted, @lost and @exit (version 1
 // used other names) and keeps path keys joined with " → "; a version 1

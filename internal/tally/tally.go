@@ -29,15 +29,9 @@ const (
 	Credit Family = 2
 	// Activity: Dims "". Vec = {sessions started, actions accepted, touches accepted}.
 	Activity Family = 3
-	// ChannelTransitions: Dims = order digit + Sep + from state + Sep + to state.
-	// Vec = {count, 0, 0}. Provisional: moves as journeys grow.
-	ChannelTransitions Family = 4
-	// Coalitions: Dims = sorted distinct channels joined by Sep.
-	// Vec = {journeys, conversions, value micro-units}. Provisional.
-	Coalitions Family = 5
-	// ActionTransitions: Dims = from + Sep + to (@entry/@exit included).
-	// Vec = {count, 0, 0}. Provisional: moves as sessions grow.
-	ActionTransitions Family = 6
+	// Numbers 4, 5 and 6 were set aside for channel transitions, channel
+	// sets and action transitions; no release wrote them (those are derived
+	// from SessionPaths and JourneyPaths at query time). Do not reuse them.
 	// Funnel: Dims = depth reached as a decimal string ("0".."n").
 	// Vec = {sessions, sessions that reached the basket step, of those converted}. Provisional.
 	Funnel Family = 7
@@ -65,8 +59,7 @@ func MinStep(f Family) int64 {
 }
 
 // Families lists every family, in storage order.
-var Families = []Family{Totals, Credit, Activity, ChannelTransitions, Coalitions,
-	ActionTransitions, Funnel, SessionPaths, JourneyPaths}
+var Families = []Family{Totals, Credit, Activity, Funnel, SessionPaths, JourneyPaths}
 
 // Sep separates parts of Dims. Event strings never hold control characters
 // (the decoder rejects them), so Sep cannot occur inside a name.
