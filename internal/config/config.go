@@ -189,10 +189,6 @@ type Config struct {
 	// PathMaxLen is the most steps a top path shows; longer paths are cut
 	// with an ellipsis. Default 8.
 	PathMaxLen int `yaml:"path_max_len"`
-	// TopPathsCapacity is the number of counters per bucket in the
-	// Space-Saving summary of top paths (Metwally et al. 2005); a count is
-	// over by at most total/capacity. Default 1000.
-	TopPathsCapacity int `yaml:"top_paths_capacity"`
 	// Alert configures abandonment spike alerts.
 	Alert Alert `yaml:"alert"`
 	// Store configures the embedded store.
@@ -208,24 +204,23 @@ type Config struct {
 // Default returns the documented defaults.
 func Default() Config {
 	return Config{
-		Currency:         "",
-		SessionGap:       Duration(30 * time.Minute),
-		Lateness:         Duration(5 * time.Minute),
-		GoalActions:      []string{"order"},
-		FunnelSteps:      []string{"product_view", "basket_add", "checkout", "order"},
-		BasketStep:       "basket_add",
-		ClickLookback:    Duration(30 * day),
-		ViewLookback:     Duration(day),
-		JourneyTimeout:   Duration(30 * day),
-		DirectChannel:    "direct",
-		HalfLife:         Duration(7 * day),
-		PositionWeights:  PositionWeights{First: 0.4, Middle: 0.2, Last: 0.4},
-		DedupHorizon:     Duration(7 * day),
-		MarkovMaxOrder:   3,
-		CollapseRepeats:  true,
-		ShapleyCap:       15,
-		PathMaxLen:       8,
-		TopPathsCapacity: 1000,
+		Currency:        "",
+		SessionGap:      Duration(30 * time.Minute),
+		Lateness:        Duration(5 * time.Minute),
+		GoalActions:     []string{"order"},
+		FunnelSteps:     []string{"product_view", "basket_add", "checkout", "order"},
+		BasketStep:      "basket_add",
+		ClickLookback:   Duration(30 * day),
+		ViewLookback:    Duration(day),
+		JourneyTimeout:  Duration(30 * day),
+		DirectChannel:   "direct",
+		HalfLife:        Duration(7 * day),
+		PositionWeights: PositionWeights{First: 0.4, Middle: 0.2, Last: 0.4},
+		DedupHorizon:    Duration(7 * day),
+		MarkovMaxOrder:  3,
+		CollapseRepeats: true,
+		ShapleyCap:      15,
+		PathMaxLen:      8,
 		Alert: Alert{
 			Interval:    Duration(5 * time.Minute),
 			Lambda:      0.2,

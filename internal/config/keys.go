@@ -24,7 +24,6 @@ var keyDocs = []struct{ Key, Doc string }{
 	{"collapse_repeats", `Collapse consecutive repeats of a channel in Markov paths (A → A → B counts as A → B).`},
 	{"shapley_cap", `Most channels that are Shapley players, 1 to 20 (the work grows as 2^players); the rest are pooled as "other".`},
 	{"path_max_len", `Most steps a top path shows; longer paths are cut with an ellipsis. At least 2.`},
-	{"top_paths_capacity", `Counters per bucket in the Space-Saving summary of top paths (Metwally et al. 2005); a count is over by at most total/capacity.`},
 	{"alert", `Abandonment spike alerts: an EWMA control chart (Roberts 1959; NIST/SEMATECH e-Handbook 6.3.2.4) over the abandonment rate per interval, limits from the binomial variance p(1−p)/n (p-chart, 6.3.3.2).`},
 	{"alert.interval", `Width of the intervals the rate is computed over, by session end; a multiple of the finest store step.`},
 	{"alert.lambda", `EWMA weight of the newest interval, 0 < λ ≤ 1.`},

@@ -61,7 +61,6 @@ func (c Config) Validate() error {
 	v.between("markov_max_order", c.MarkovMaxOrder, 1, 4)
 	v.between("shapley_cap", c.ShapleyCap, 1, 20)
 	v.atLeast("path_max_len", c.PathMaxLen, 2)
-	v.atLeast("top_paths_capacity", c.TopPathsCapacity, 1)
 
 	a := c.Alert
 	v.positive("alert.interval", a.Interval)
