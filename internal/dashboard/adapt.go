@@ -4,11 +4,9 @@ import (
 	"fmt"
 	"math"
 	"sort"
-	"strings"
 	"time"
 
 	"github.com/touchledger/touchledger/internal/event"
-	"github.com/touchledger/touchledger/internal/pathstats"
 	"github.com/touchledger/touchledger/internal/query"
 )
 
@@ -227,10 +225,10 @@ func TransitionGrid(a query.TransitionsAnswer) (rows, cols []string, cells [][]H
 func FlowFrom(paths query.PathsAnswer, actions query.TransitionsAnswer) FlowData {
 	d := FlowData{Sessions: paths.Total, Start: event.StateEntry, End: event.StateExit}
 	for _, p := range paths.Paths {
-		if p.Path == "" {
+		if len(p.Path) == 0 {
 			continue
 		}
-		d.Paths = append(d.Paths, FlowPath{Steps: strings.Split(p.Path, pathstats.PathSeparator), Count: p.Count, Conversions: p.Conversions})
+		d.Paths = append(d.Paths, FlowPath{Steps: p.Path, Count: p.Count, Conversions: p.Conversions})
 	}
 	for _, t := range actions.Transitions {
 		d.Next = append(d.Next, FlowLink{From: t.From, To: t.To, Count: t.Count, Probability: t.Probability})
@@ -242,7 +240,7 @@ func FlowFrom(paths query.PathsAnswer, actions query.TransitionsAnswer) FlowData
 func FunnelBars(a query.FunnelAnswer) []FunnelBar {
 	out := make([]FunnelBar, len(a.Steps))
 	for i, s := range a.Steps {
-		out[i] = FunnelBar{Step: s.Step, Sessions: s.Sessions, Abandonment: s.Abandonment}
+		out[i] = FunnelBar{Step: s.Step, Sessions: s.Sessions, Abandonment: orZero(s.Abandonment)}
 	}
 	return out
 }
@@ -314,4 +312,13 @@ func Zoom(d ControlData) (ControlData, string) {
 		}
 	}
 	return out, what
+}
+
+// orZero reads an optional share of an answer; nil (unknown: a last funnel
+// step, a step no session reached) draws as 0.
+func orZero(x *float64) float64 {
+	if x == nil {
+		return 0
+	}
+	return *x
 }

@@ -388,7 +388,7 @@ func flowChart(a Answers) Chart {
 	c.Summary = flowSummary(a.Paths)
 	c.Table = Table{Caption: "Main paths", Head: []string{"path", "sessions", "share of sessions", "conversion rate"}}
 	for _, p := range a.Paths.Paths {
-		c.Table.Rows = append(c.Table.Rows, []string{p.Path, Count.format(float64(p.Count)), Percent.format(p.Share), Percent.format(p.ConversionRate)})
+		c.Table.Rows = append(c.Table.Rows, []string{p.Key(), Count.format(float64(p.Count)), Percent.format(p.Share), Percent.format(p.ConversionRate)})
 	}
 	return c
 }
@@ -399,10 +399,10 @@ func flowSummary(a query.PathsAnswer) string {
 	}
 	top := a.Paths[0]
 	s := fmt.Sprintf("The most common session is %q: %s sessions (%s of %s), %s of them converting.",
-		top.Path, Count.format(float64(top.Count)), Percent.format(top.Share), Count.format(float64(a.Total)), Percent.format(top.ConversionRate))
+		top.Key(), Count.format(float64(top.Count)), Percent.format(top.Share), Count.format(float64(a.Total)), Percent.format(top.ConversionRate))
 	for _, p := range a.Paths {
 		if p.Conversions > 0 {
-			s += fmt.Sprintf(" The most common converting session is %q (%s sessions).", p.Path, Count.format(float64(p.Count)))
+			s += fmt.Sprintf(" The most common converting session is %q (%s sessions).", p.Key(), Count.format(float64(p.Count)))
 			break
 		}
 	}
@@ -424,7 +424,9 @@ func funnelChart(a Answers) Chart {
 	for i, s := range a.Funnel.Steps {
 		left := "–"
 		if i < len(a.Funnel.Steps)-1 {
-			left = Percent.format(s.Abandonment)
+			if s.Abandonment != nil {
+				left = Percent.format(*s.Abandonment)
+			}
 		}
 		c.Table.Rows = append(c.Table.Rows, []string{s.Step, Count.format(float64(s.Sessions)), left})
 	}
@@ -437,17 +439,17 @@ func funnelSummary(a query.FunnelAnswer) string {
 	}
 	worst := 0
 	for i := range a.Steps[:len(a.Steps)-1] {
-		if a.Steps[i].Abandonment > a.Steps[worst].Abandonment {
+		if orZero(a.Steps[i].Abandonment) > orZero(a.Steps[worst].Abandonment) {
 			worst = i
 		}
 	}
 	s := fmt.Sprintf("%s sessions reached %s; %s of them went all the way to %s.", Count.format(float64(a.Steps[0].Sessions)),
-		a.Steps[0].Step, Percent.format(a.OverallConversion), a.Steps[len(a.Steps)-1].Step)
+		a.Steps[0].Step, Percent.format(orZero(a.OverallConversion)), a.Steps[len(a.Steps)-1].Step)
 	if len(a.Steps) > 1 {
-		s += fmt.Sprintf(" The biggest loss is after %s: %s left before %s.", a.Steps[worst].Step, Percent.format(a.Steps[worst].Abandonment), a.Steps[worst+1].Step)
+		s += fmt.Sprintf(" The biggest loss is after %s: %s left before %s.", a.Steps[worst].Step, Percent.format(orZero(a.Steps[worst].Abandonment)), a.Steps[worst+1].Step)
 	}
-	if a.BasketSessions > 0 {
-		s += fmt.Sprintf(" Basket abandonment: %s of %s basket sessions.", Percent.format(a.BasketAbandonment), Count.format(float64(a.BasketSessions)))
+	if a.BasketAbandonment != nil {
+		s += fmt.Sprintf(" Basket abandonment: %s of %s basket sessions.", Percent.format(*a.BasketAbandonment), Count.format(float64(a.BasketSessions)))
 	}
 	return s
 }

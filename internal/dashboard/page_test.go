@@ -9,7 +9,6 @@ import (
 	"time"
 
 	"github.com/touchledger/touchledger/internal/event"
-	"github.com/touchledger/touchledger/internal/pathstats"
 	"github.com/touchledger/touchledger/internal/query"
 )
 
@@ -57,16 +56,16 @@ func fixedAnswers() Answers {
 		{From: "basket_add", To: "@exit", Count: 70, Probability: 1},
 	}}
 	a.Paths = query.PathsAnswer{Level: "action", Total: 100, Paths: []query.PathStat{
-		{Path: "product_view", Count: 60, Share: 0.6},
-		{Path: "product_view" + pathstats.PathSeparator + "basket_add", Count: 30, Share: 0.3, Conversions: 3, ConversionRate: 0.1},
-		{Path: "basket_add", Count: 10, Share: 0.1},
+		{Path: []string{"product_view"}, Count: 60, PathCount: 60, Share: 0.6},
+		{Path: []string{"product_view", "basket_add"}, Count: 30, PathCount: 30, Share: 0.3, Conversions: 3, ConversionRate: 0.1},
+		{Path: []string{"basket_add"}, Count: 10, PathCount: 10, Share: 0.1},
 	}}
 	a.Funnel = query.FunnelAnswer{Sessions: 100, From: "2026-09-04T18:00:00Z", To: "2026-10-03T19:00:00Z", Steps: []query.FunnelStep{
-		{Step: "product_view", Sessions: 100, Abandonment: 0.6},
-		{Step: "basket_add", Sessions: 40, Abandonment: 0.75},
-		{Step: "checkout", Sessions: 10, Abandonment: 0.3},
+		{Step: "product_view", Sessions: 100, Abandonment: ptr(0.6)},
+		{Step: "basket_add", Sessions: 40, Abandonment: ptr(0.75)},
+		{Step: "checkout", Sessions: 10, Abandonment: ptr(0.3)},
 		{Step: "order", Sessions: 7},
-	}, BasketSessions: 40, BasketAbandonment: 33.0 / 40, OverallConversion: 0.07}
+	}, BasketSessions: 40, BasketAbandonment: ptr(33.0 / 40), OverallConversion: ptr(0.07)}
 	a.Alerts = query.AlertsAnswer{Name: "checkout_abandonment", Interval: (15 * time.Minute).String()}
 	t0 := time.Date(2026, 10, 3, 12, 0, 0, 0, time.UTC)
 	for i, r := range []float64{0, 0.3, 0.25, 0.35, 0.8, 0.9, 0.3, 0.2, 0.3} {
@@ -189,7 +188,7 @@ func checkPage(t *testing.T, page []byte, a Answers) {
 	// Action flow: links are sums of the main paths.
 	links := map[string]int64{}
 	for _, p := range a.Paths.Paths {
-		states := append(append([]string{event.StateEntry}, strings.Split(p.Path, pathstats.PathSeparator)...), event.StateExit)
+		states := append(append([]string{event.StateEntry}, p.Path...), event.StateExit)
 		for i := 1; i < len(states); i++ {
 			links[exactInt(int64(i-1))+"|"+states[i-1]+"|"+states[i]] += p.Count
 		}
@@ -215,7 +214,7 @@ func checkPage(t *testing.T, page []byte, a Answers) {
 			break
 		}
 		s := a.Funnel.Steps[i]
-		if n.attr["data-step"] != s.Step || n.attr["data-value"] != exactInt(s.Sessions) || float(t, n.attr["data-abandonment"]) != s.Abandonment {
+		if n.attr["data-step"] != s.Step || n.attr["data-value"] != exactInt(s.Sessions) || float(t, n.attr["data-abandonment"]) != orZero(s.Abandonment) {
 			t.Errorf("funnel step %d = %v, want %+v", i, n.attr, s)
 		}
 	}
@@ -432,3 +431,5 @@ func TestShiftSummaryEdges(t *testing.T) {
 		}
 	}
 }
+
+func ptr(x float64) *float64 { return &x }

@@ -363,10 +363,10 @@ func (m *Metrics) computeWindow(st pipeline.Status) (out []prometheus.Metric, co
 		fail(m.abandonment, fmt.Errorf("abandonment: %w", err))
 	} else {
 		for i, s := range f.Steps {
-			if i == len(f.Steps)-1 || s.Sessions == 0 {
+			if i == len(f.Steps)-1 || s.Abandonment == nil {
 				continue
 			}
-			out = append(out, constMetric(m.abandonment, prometheus.GaugeValue, s.Abandonment, s.Step))
+			out = append(out, constMetric(m.abandonment, prometheus.GaugeValue, *s.Abandonment, s.Step))
 		}
 	}
 
