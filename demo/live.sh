@@ -13,7 +13,7 @@ mkdir -p "$dir"
 go build -o "$dir/ingest" ./cmd/ingest
 go build -o "$dir/query" ./cmd/query
 go run ./cmd/demo --out "$dir/demo-events.jsonl" --truth "$dir/truth.json"
-"$dir/ingest" --config demo/touchledger.yaml --data "$dir/store" --port "$port" --http "$http" >"$dir/worker.out" 2>"$dir/worker.log" &
+"$dir/ingest" --config demo/touchledger.yaml --data "$dir/store" --port "$port" --http "$http" --truth "$dir/truth.json" >"$dir/worker.out" 2>"$dir/worker.log" &
 worker=$!
 trap 'kill -TERM $worker 2>/dev/null; wait $worker 2>/dev/null' EXIT INT TERM
 for _ in $(seq 150); do grep -q '^worker:' "$dir/worker.out" 2>/dev/null && break; sleep 0.2; done
