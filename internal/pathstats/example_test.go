@@ -6,7 +6,7 @@ import (
 	"github.com/touchledger/touchledger/internal/pathstats"
 )
 
-// Example 1 of check-values.md §6: three counters over a b a c a b d a b e.
+// Example 1 of docs/references.md §6: three counters over a b a c a b d a b e.
 func ExampleTopK() {
 	top := pathstats.NewTopK(3)
 	for _, item := range []string{"a", "b", "a", "c", "a", "b", "d", "a", "b", "e"} {

@@ -29,12 +29,12 @@ func TestTopKSpaceSavingExamples(t *testing.T) {
 		stream string
 		want   []Item
 	}{
-		// check-values.md §6 Example 1 [computed]: m = 3, stream a b a c a b d a b e,
+		// docs/references.md §6 Example 1 [computed]: m = 3, stream a b a c a b d a b e,
 		// final a:4 (ε 0), b:3 (ε 0), e:3 (ε 2).
 		{"example 1", 3, "abacabdabe", []Item{{"a", 4, 0}, {"b", 3, 0}, {"e", 3, 2}}},
-		// check-values.md §6 Example 1 at t = 7: d evicts c (min 1), d = 2, ε = 1.
+		// docs/references.md §6 Example 1 at t = 7: d evicts c (min 1), d = 2, ε = 1.
 		{"example 1 at t=7", 3, "abacabd", []Item{{"a", 3, 0}, {"b", 2, 0}, {"d", 2, 1}}},
-		// check-values.md §6 Example 2 [computed]: m = 3, stream aaabbcaadbbeafaab,
+		// docs/references.md §6 Example 2 [computed]: m = 3, stream aaabbcaadbbeafaab,
 		// final a:8 (ε 0), b:5 (ε 0), f:4 (ε 3).
 		{"example 2", 3, "aaabbcaadbbeafaab", []Item{{"a", 8, 0}, {"b", 5, 0}, {"f", 4, 3}}},
 		// Tie-break (doc.go): a:1 and b:1 tie, the larger key b is evicted.
@@ -52,7 +52,7 @@ func TestTopKSpaceSavingExamples(t *testing.T) {
 			}
 		})
 	}
-	// check-values.md §6 Example 1: guaranteed top-2 = {a, b} (4 − 0 >= 3, 3 − 0 >= 3);
+	// docs/references.md §6 Example 1: guaranteed top-2 = {a, b} (4 − 0 >= 3, 3 − 0 >= 3);
 	// min = 3 <= 10/3.
 	s := topKOf(3, "abacabdabe")
 	if got, want := s.Guaranteed(2), []Item{{"a", 4, 0}, {"b", 3, 0}}; !slices.Equal(got, want) {
@@ -171,9 +171,9 @@ func TestTopKInvariantsRandomStreams(t *testing.T) {
 }
 
 func TestTopKMergeExamples(t *testing.T) {
-	// The inputs of check-values.md §7's MG examples, built as Space-Saving
+	// The inputs of docs/references.md §7's Misra–Gries examples, built as Space-Saving
 	// summaries with m = 2 from streams. TopK's merge is the Space-Saving form,
-	// not MG, so the §7 MG outputs ({a:3, c:1} and {a:2, c:1}, lower-bound
+	// not MG, so the §7 Misra–Gries outputs ({a:3, c:1} and {a:2, c:1}, lower-bound
 	// counters) do not apply; the wants below are worked by hand from the rule
 	// in doc.go [computed by hand], and the true counts are given to show each
 	// interval [Count − Error, Count] holds them.
