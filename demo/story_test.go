@@ -79,6 +79,15 @@ func TestDemoStory(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
+	// The first day has no day before it: its changes are unknown (nil,
+	// JSON null), every later day's are known.
+	for i, d := range sh.Days {
+		for _, cell := range d.Channels {
+			if (cell.Change == nil) != (i == 0) || (cell.ShareChange == nil) != (i == 0) {
+				t.Errorf("shift day %s (index %d) %s: change %v, share change %v; want nil exactly on the first day", d.Day, i, cell.Channel, cell.Change, cell.ShareChange)
+			}
+		}
+	}
 	share := func(from, to int, ch string) float64 {
 		var num, den float64
 		for _, d := range sh.Days[from:to] {

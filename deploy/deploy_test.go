@@ -44,7 +44,7 @@ var nodes = []node{
 }
 
 const (
-	// The subject layout of /tmp/brief-live.md (docs: nats/README.md).
+	// The subject layout of nats/README.md.
 	mappingSource = "tl.in.*.*"
 	mappingDest   = "tl.ev.{{partition(16,2)}}.{{wildcard(1)}}.{{wildcard(2)}}"
 	partitions    = 16

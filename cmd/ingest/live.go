@@ -40,6 +40,7 @@ type liveFlags struct {
 	scfg         stream.Config
 	httpAddr     string
 	httpToken    string
+	truthFile    string
 	logFormat    string
 	shutdownWait time.Duration
 	// Feeds on NATS (internal/feed).
@@ -64,6 +65,7 @@ func addLiveFlags(fs *flag.FlagSet, l *liveFlags) {
 	cli.DurationVar(fs, &l.scfg.WatchdogTimeout, "watchdog", l.scfg.WatchdogTimeout, "flag the consumer stalled after this long without deliveries while messages are pending")
 	fs.StringVar(&l.httpAddr, "http", web.DefaultAddr, "`address` for /metrics, /healthz, /readyz and /api/ (\"off\" disables; port 0 = any free port)")
 	fs.StringVar(&l.httpToken, "http-token", "", "bearer `token` required on HTTP (default $TL_HTTP_TOKEN; needed to listen beyond loopback)")
+	fs.StringVar(&l.truthFile, "truth", "", "a simulated world's truth `file` (demo --truth): the dashboard draws each channel's true share beside the models")
 	fs.StringVar(&l.logFormat, "log-format", "text", "log `format` on standard error: text or json")
 	cli.DurationVar(fs, &l.shutdownWait, "shutdown-timeout", 10*time.Second, "longest wait for HTTP requests when stopping")
 	l.reportInterval, l.reportWindow = feed.DefaultReportInterval, feed.DefaultReportWindow
@@ -81,6 +83,14 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 	parts, err := stream.ParsePartitions(l.partitions, l.scfg.Partitions)
 	if err != nil {
 		return err
+	}
+	var truth *query.Truth
+	if l.truthFile != "" {
+		t, err := query.ReadTruth(l.truthFile)
+		if err != nil {
+			return err
+		}
+		truth = &t
 	}
 	if err := l.scfg.Validate(); err != nil {
 		return err
@@ -199,7 +209,7 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 			Ready:       web.ReadyAfterCommit(p, idle),
 			Token:       l.httpToken,
 			Log:         log,
-			Page:        dashboard.NewHandler(dashboard.Options{Open: openQuerier, Title: "touchledger"}),
+			Page:        dashboard.NewHandler(dashboard.Options{Open: openQuerier, Title: "touchledger", Truth: truth}),
 			Backup:      st.Backup,
 		})
 		ln, err := web.Listen(ctx, l.httpAddr, l.httpToken)

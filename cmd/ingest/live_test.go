@@ -41,6 +41,7 @@ func TestUsage(t *testing.T) {
 		{[]string{"--data", dir, "--log-format", "xml"}, 2, []string{"--log-format"}},
 		{[]string{"--data", dir, "--report-interval", "soon"}, 2, []string{"invalid duration"}},
 		{[]string{"--data", dir, "--report-window", "0", "--http", "off", "--port", "0"}, 1, []string{"--report-window must be positive"}},
+		{[]string{"--data", dir, "--truth", filepath.Join(dir, "no-such-truth.json"), "--http", "off", "--port", "0"}, 1, []string{"truth file"}},
 	}
 	for _, tt := range tests {
 		var out, errOut bytes.Buffer
@@ -74,12 +75,16 @@ func TestLiveCommand(t *testing.T) {
 	if err := os.WriteFile(events, buf.Bytes(), 0o644); err != nil {
 		t.Fatal(err)
 	}
+	truthFile := filepath.Join(t.TempDir(), "truth.json")
+	if err := os.WriteFile(truthFile, []byte(`{"incremental_total":10,"channels":{"search_ads":6,"social_ads":4}}`), 0o644); err != nil {
+		t.Fatal(err)
+	}
 	cfgFile := filepath.Join(t.TempDir(), "tl.yaml")
 	if err := os.WriteFile(cfgFile, []byte("lateness: 1s\nstore:\n  commit_interval: 200ms\n"), 0o644); err != nil {
 		t.Fatal(err)
 	}
 	worker := exec.Command(bin, "--data", t.TempDir(), "--port", "0", "--http", "127.0.0.1:0", "--config", cfgFile, "--quiet-after", "200ms",
-		"--report-interval", "300ms", "--report-window", "30d")
+		"--report-interval", "300ms", "--report-window", "30d", "--truth", truthFile)
 	stdout, err := worker.StdoutPipe()
 	if err != nil {
 		t.Fatal(err)
@@ -146,6 +151,10 @@ func TestLiveCommand(t *testing.T) {
 			t.Fatalf("/metrics never showed %q:\n%.2000s", accepted, m)
 		}
 		time.Sleep(100 * time.Millisecond)
+	}
+	// The dashboard draws the truth file's shares as rings (--truth).
+	if page := get("/"); !strings.Contains(page, "simulated true share") || !strings.Contains(page, `class="ref"`) {
+		t.Errorf("dashboard without the truth's rings:\n%.800s", page)
 	}
 	if m := get("/metrics"); !strings.Contains(m, "touchledger_consumer_lag_messages 0") || !strings.Contains(m, "touchledger_buffered_events 0") {
 		t.Errorf("/metrics: want lag 0 and nothing buffered:\n%.2000s", m)

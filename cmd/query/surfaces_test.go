@@ -98,7 +98,7 @@ func TestSurfacesAgree(t *testing.T) {
 	t.Cleanup(srv.Close)
 
 	viaCLI := func(kind string, p map[string]string) verdict {
-		args := []string{kind, "--nats", s.ClientURL(), "--format", "json"}
+		args := []string{kind, "--nats", s.ClientURL(), "--format", "json", "--timeout", "10s"}
 		for k, v := range p {
 			if k == "points" && v == "" {
 				args = append(args, "--points")

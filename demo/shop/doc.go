@@ -9,7 +9,7 @@
 // channels switched off) fully determines the world: Generate writes the same
 // bytes for the same Config. Output is JSON lines in event-time order (ties in
 // generation order) with exactly the fields of the event contract in the
-// product brief (DESIGN.md, "Events"): touches carry id, user, time, kind
+// event package (internal/event/doc.go): touches carry id, user, time, kind
 // "touch", channel, campaign and interaction ("click"/"view"); actions carry
 // id, user, time, kind "action", action, value (2 decimals: item price, or
 // basket total at checkout and purchase) and currency (EUR). Times are RFC 3339 UTC with milliseconds, inside
@@ -59,7 +59,7 @@
 // and summing over c gives conv(S) − conv(∅): TrueIncremental's per-channel
 // values add up exactly to the simulated incremental total. The game
 // v(S) = conv(S) − conv(∅) is additive, so these removal differences are also
-// its Shapley values (Shapley 1953 [memory]; formula in check-values.md §4):
+// its Shapley values (Shapley 1953 [from memory]; formula in docs/references.md §4):
 // every marginal contribution of c is the same number. The outage and the end
 // of the period remove a buyer's purchase independently of S, which keeps the
 // identity. coupon_partners has lift 0 and only appears right before a

@@ -6,7 +6,7 @@ import (
 )
 
 // stream is a splitmix64 generator (Steele, Lea & Flood, "Fast splittable
-// pseudorandom number generators", OOPSLA 2014 [memory]). Each visitor gets
+// pseudorandom number generators", OOPSLA 2014 [from memory]). Each visitor gets
 // one independent stream per purpose (life, decision, one per channel), seeded
 // from (seed, visitor, purpose), so switching one channel off never shifts the
 // numbers drawn for anything else. The algorithm is written out here so the

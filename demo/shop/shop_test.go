@@ -40,7 +40,7 @@ type line struct {
 var twoDecimals = regexp.MustCompile(`"value":[0-9]+\.[0-9]{2}[,}]`)
 
 // parseLines decodes every line strictly: exactly the contract's fields for
-// its kind, with the contract's types (docs: /work/shared/DESIGN.md, events).
+// its kind, with the contract's types (the event contract of internal/event/doc.go).
 func parseLines(t *testing.T, data []byte) []line {
 	t.Helper()
 	touchFields := []string{"campaign", "channel", "id", "interaction", "kind", "time", "user"}
@@ -190,7 +190,7 @@ func TestGenerateWritesContractLines(t *testing.T) {
 }
 
 // sessionsOf splits each user's actions into sessions at gaps of 30 minutes
-// or more (the 30-minute timeout: check-values.md §1, common practice).
+// or more (the 30-minute timeout: docs/references.md §1, common practice).
 func sessionsOf(lines []line) [][]line {
 	byUser := map[string][]line{}
 	var users []string

@@ -71,7 +71,7 @@ func TestTrueIncrementalSumsToIncrementalTotal(t *testing.T) {
 // TestTrueIncrementalIsShapley checks doc.go's claim: for this world the
 // removal differences are the Shapley values of the game v(S) = conversions
 // with exactly the channels S on, minus those with none. Formula:
-// check-values.md §4 (Shapley 1953 [memory]); computed here over all 2^7
+// docs/references.md §4 (Shapley 1953 [from memory]); computed here over all 2^7
 // coalitions by brute force.
 func TestTrueIncrementalIsShapley(t *testing.T) {
 	c := testConfig(1500)

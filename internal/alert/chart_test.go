@@ -7,7 +7,7 @@ import (
 )
 
 // nistEWMAData is the NIST §6.3.2.4 EWMA example series
-// (check-values.md §5, [source: NIST §6.3.2.4 as quoted in a public test file]).
+// (docs/references.md §5, published: NIST §6.3.2.4, as quoted in public repositories).
 var nistEWMAData = []float64{
 	52.0, 47.0, 53.0, 49.3, 50.1, 47.0, 51.0, 50.1, 51.2, 50.5,
 	49.6, 47.6, 49.9, 51.3, 47.8, 51.2, 52.6, 52.4, 53.6, 52.1,
@@ -20,8 +20,8 @@ const (
 )
 
 func TestEWMANIST(t *testing.T) {
-	// check-values.md §5, EWMA_0..20 to 2 dp as printed by NIST §6.3.2.4
-	// [source: NIST §6.3.2.4 quoted; reproduced = computed].
+	// docs/references.md §5, EWMA_0..20 to 2 dp as printed by NIST §6.3.2.4
+	// [published: NIST §6.3.2.4 as quoted; reproduced exactly, computed].
 	want := []float64{
 		50.00, 50.60, 49.52, 50.56, 50.18, 50.16, 49.21, 49.75, 49.85, 50.26, 50.33,
 		50.11, 49.36, 49.52, 50.05, 49.38, 49.92, 50.73, 51.23, 51.94, 51.99,
@@ -35,7 +35,7 @@ func TestEWMANIST(t *testing.T) {
 			t.Errorf("EWMA_%d = %.4f, want %.2f", i, got[i], want[i])
 		}
 	}
-	// check-values.md §5 [computed]: EWMA_20 = 162463260183264448489/3125000000000000000 exactly.
+	// docs/references.md §5 [computed]: EWMA_20 = 162463260183264448489/3125000000000000000 exactly.
 	if wantExact := 51.98824325864462; math.Abs(got[20]-wantExact) > 1e-9 {
 		t.Errorf("EWMA_20 = %.12f, want %.12f", got[20], wantExact)
 	}
@@ -43,18 +43,18 @@ func TestEWMANIST(t *testing.T) {
 
 func TestEWMALimitsNIST(t *testing.T) {
 	lcl, ucl := EWMALimits(nistTarget, nistSigma, nistLambda, 3)
-	// NIST §6.3.2.4 prints UCL = 52.5884, LCL = 47.4115 (check-values.md §5, tolerance 1e-3).
+	// NIST §6.3.2.4 prints UCL = 52.5884, LCL = 47.4115 (docs/references.md §5, tolerance 1e-3).
 	if math.Abs(ucl-52.5884) > 1e-3 || math.Abs(lcl-47.4115) > 1e-3 {
 		t.Errorf("EWMALimits = (%.4f, %.4f), want (47.4115, 52.5884)", lcl, ucl)
 	}
-	// check-values.md §5 [computed]: unrounded UCL = 52.588432, LCL = 47.411568.
+	// docs/references.md §5 [computed]: unrounded UCL = 52.588432, LCL = 47.411568.
 	if math.Abs(ucl-52.588432) > 1e-6 || math.Abs(lcl-47.411568) > 1e-6 {
 		t.Errorf("EWMALimits = (%.6f, %.6f), want (47.411568, 52.588432)", lcl, ucl)
 	}
 }
 
 func TestEWMALimitsAtNIST(t *testing.T) {
-	// check-values.md §5, time-varying limits for the NIST example [computed], 4 dp.
+	// docs/references.md §5, time-varying limits for the NIST example [computed], 4 dp.
 	tests := []struct {
 		step     int
 		ucl, lcl float64
@@ -71,7 +71,7 @@ func TestEWMALimitsAtNIST(t *testing.T) {
 			t.Errorf("EWMALimitsAt(t=%d) = (%.5f, %.5f), want (%.4f, %.4f)", tt.step, lcl, ucl, tt.lcl, tt.ucl)
 		}
 	}
-	// check-values.md §5: at t = 1 the factor is exactly λ, σ_z = 0.3·s.
+	// docs/references.md §5: at t = 1 the factor is exactly λ, σ_z = 0.3·s.
 	_, ucl1 := EWMALimitsAt(nistTarget, nistSigma, nistLambda, 3, 1)
 	if got, want := ucl1-nistTarget, 3*nistLambda*nistSigma; math.Abs(got-want) > 1e-12 {
 		t.Errorf("UCL_1 − target = %.12f, want 3·λ·s = %.12f", got, want)
@@ -88,7 +88,7 @@ func TestEWMALimitsAtNIST(t *testing.T) {
 }
 
 func TestEWMANISTNoPointOut(t *testing.T) {
-	// check-values.md §5: no point of the NIST example is out of control, under
+	// docs/references.md §5: no point of the NIST example is out of control, under
 	// either limit; the maximum EWMA is 51.988 and the minimum 49.212 [computed].
 	zs := EWMA(nistEWMAData, nistLambda, nistTarget)
 	lcl, ucl := EWMALimits(nistTarget, nistSigma, nistLambda, 3)
@@ -136,7 +136,7 @@ func TestEWMAClosedForm(t *testing.T) {
 }
 
 // wafer proportions of the NIST §6.3.3.2 p-chart example, 30 wafers of 50
-// chips (check-values.md §5, [source: dsy109/Supplemental defects.txt citing NIST pmc332]).
+// chips (docs/references.md §5, published: NIST §6.3.3.2, as transcribed in a public data file).
 var waferProportions = []float64{
 	0.24, 0.30, 0.16, 0.20, 0.08, 0.14, 0.32, 0.18, 0.28, 0.20,
 	0.10, 0.12, 0.34, 0.24, 0.44, 0.16, 0.20, 0.10, 0.26, 0.22,
@@ -148,13 +148,13 @@ func TestPChartNISTWafers(t *testing.T) {
 	for _, p := range waferProportions {
 		defectives += int64(math.Round(p * 50))
 	}
-	// check-values.md §5 [computed]: total defectives 347, p̄ = 347/1500.
+	// docs/references.md §5 [computed]: total defectives 347, p̄ = 347/1500.
 	if defectives != 347 {
 		t.Fatalf("total defectives = %d, want 347", defectives)
 	}
 	pbar := float64(defectives) / 1500
 	lcl, ucl := PChartLimits(pbar, 50, 3)
-	// NIST §6.3.3.2 prints .0524 / .4102 ([memory], consistent with [computed] 0.052428 / 0.410239).
+	// NIST §6.3.3.2 prints .0524 / .4102 ([from memory], consistent with [computed] 0.052428 / 0.410239).
 	if math.Abs(lcl-0.0524) > 1e-4 || math.Abs(ucl-0.4102) > 1e-4 {
 		t.Errorf("PChartLimits = (%.6f, %.6f), want (0.0524, 0.4102)", lcl, ucl)
 	}
@@ -167,7 +167,7 @@ func TestPChartNISTWafers(t *testing.T) {
 			out = append(out, i+1)
 		}
 	}
-	// check-values.md §5: samples 15 (0.44) and 23 (0.48) are above the UCL.
+	// docs/references.md §5: samples 15 (0.44) and 23 (0.48) are above the UCL.
 	if want := []int{15, 23}; !equalInts(out, want) {
 		t.Errorf("samples out = %v, want %v", out, want)
 	}
@@ -181,7 +181,7 @@ func TestPChartLimits(t *testing.T) {
 		lcl, ucl float64
 		tol      float64
 	}{
-		// check-values.md §5, "limits for varying n at p̄ = 0.10" [computed], 3 dp.
+		// docs/references.md §5, p-chart limits at p̄ = 0.10 for other n [computed], 3 dp.
 		{"n=100", 0.10, 100, 0.010, 0.190, 5e-4},
 		{"n=400", 0.10, 400, 0.055, 0.145, 5e-4},
 		{"n=2500", 0.10, 2500, 0.082, 0.118, 5e-4},
@@ -200,8 +200,8 @@ func TestPChartLimits(t *testing.T) {
 	}
 }
 
-// nistCUSUMData is the NIST §6.3.2.3 CUSUM example (check-values.md §5,
-// [source: two public repository files quoting NIST §6.3.2.3]).
+// nistCUSUMData is the NIST §6.3.2.3 CUSUM example (docs/references.md §5,
+// published: NIST §6.3.2.3, as quoted in public repositories).
 var nistCUSUMData = []float64{
 	324.93, 324.68, 324.73, 324.35, 325.35, 325.23, 324.13, 324.53, 325.23, 324.60,
 	324.63, 325.15, 328.33, 327.25, 327.83, 328.50, 326.68, 327.78, 326.88, 328.35,
@@ -209,7 +209,7 @@ var nistCUSUMData = []float64{
 
 func TestCUSUMNIST(t *testing.T) {
 	hi, lo, first := CUSUM(nistCUSUMData, 325, 0.3175, 4.1959)
-	// check-values.md §5 [computed, exact decimals]: first signal at sample 14.
+	// docs/references.md §5 [computed, exact decimals]: first signal at sample 14.
 	if first != 14 {
 		t.Errorf("first signal = %d, want 14", first)
 	}
@@ -239,7 +239,7 @@ func TestCUSUMNIST(t *testing.T) {
 }
 
 func TestCUSUMStandardisedSpike(t *testing.T) {
-	// check-values.md §5 spike example [computed]: standardised CUSUM with k = 0.5,
+	// docs/references.md §5 spike example [computed]: standardised CUSUM with k = 0.5,
 	// h = 4 over z = (p − 0.10)/0.015 for rates 0.10, 0.11, 0.09, 0.12, 0.14, 0.16.
 	rates := []float64{0.10, 0.11, 0.09, 0.12, 0.14, 0.16}
 	zs := make([]float64, len(rates))
@@ -259,8 +259,8 @@ func TestCUSUMStandardisedSpike(t *testing.T) {
 }
 
 func TestWilsonNewcombe(t *testing.T) {
-	// check-values.md §5, Wilson 95 % intervals, z = 1.959964 [computed]; the
-	// cases are Newcombe (1998)'s examples ([memory] that his Table II prints
+	// docs/references.md §5, Wilson 95 % intervals, z = 1.959964 [computed]; the
+	// cases are Newcombe (1998)'s examples ([from memory] that his Table II prints
 	// these values), 4 dp.
 	tests := []struct {
 		x, n   int64
@@ -279,11 +279,11 @@ func TestWilsonNewcombe(t *testing.T) {
 			t.Errorf("Wilson(%d, %d) = (%.5f, %.5f), want (%.4f, %.4f)", tt.x, tt.n, lo, hi, tt.lo, tt.hi)
 		}
 	}
-	// check-values.md §5: with z = 1.96 exactly, 81/263 gives 0.255288 / 0.366211.
+	// docs/references.md §5: with z = 1.96 exactly, 81/263 gives 0.255288 / 0.366211.
 	if lo, hi := Wilson(81, 263, 1.96); math.Abs(lo-0.255288) > 5e-7 || math.Abs(hi-0.366211) > 5e-7 {
 		t.Errorf("Wilson(81, 263, 1.96) = (%.7f, %.7f), want (0.255288, 0.366211)", lo, hi)
 	}
-	// check-values.md §5 spike example: one-sided 95 % lower bound (z = 1.644854)
+	// docs/references.md §5 spike example: one-sided 95 % lower bound (z = 1.644854)
 	// of 30/200 is 0.113155 > p0 = 0.10 [computed].
 	if lo, _ := Wilson(30, 200, 1.644854); math.Abs(lo-0.113155) > 5e-7 {
 		t.Errorf("Wilson(30, 200, 1.644854) lower = %.7f, want 0.113155", lo)

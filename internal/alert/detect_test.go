@@ -41,7 +41,7 @@ func concat(parts ...[][2]int64) [][2]int64 {
 }
 
 func TestDetectSpikeExample(t *testing.T) {
-	// check-values.md §5, spike-detection worked example [computed]: p0 = 0.10,
+	// docs/references.md §5, spike example [computed]: p0 = 0.10,
 	// n = 400 per interval, abandons 40, 44, 36, 48, 56, 64, λ = 0.2, L = 3.
 	ivs := series([2]int64{400, 40}, [2]int64{400, 44}, [2]int64{400, 36},
 		[2]int64{400, 48}, [2]int64{400, 56}, [2]int64{400, 64})

@@ -7,7 +7,7 @@ import (
 	"github.com/touchledger/touchledger/internal/alert"
 )
 
-// The spike example of check-values.md §5: 400 sessions per 5-minute
+// The spike example of docs/references.md §5: 400 sessions per 5-minute
 // interval against a fixed baseline of 10 %; the chart first crosses its
 // limit in the sixth interval.
 func ExampleDetect() {

@@ -21,10 +21,10 @@ import (
 // days; view look-back 1 day; journey timeout 30 days; direct channel name
 // direct; time-decay half-life 7 days; position-based weights 0.4 / 0.2 /
 // 0.4"; limits 64 KiB / 128 / 256 / 128), issue 3 (Markov order 3, Shapley
-// cap 15, alert interval 5 min) and DESIGN.md. The 30-minute session gap is
-// common practice (check-values.md §1, Catledge & Pitkow 1995 used 25.5
-// min); 40/20/40 is common practice (check-values.md §2). Store sizes and
-// alert λ, L, minimum sessions are the project's choices from the brief.
+// cap 15, alert interval 5 min) and issue 11 (the names). The 30-minute session gap is
+// common practice (docs/references.md §1, Catledge & Pitkow 1995 used 25.5
+// min); 40/20/40 is common practice (docs/references.md §2). Store sizes and
+// alert λ, L, minimum sessions are the project's own choices.
 func TestDefault(t *testing.T) {
 	got := Default()
 	want := Config{

@@ -22,7 +22,7 @@
 // These rules are industry practice (named in Du et al. 2019; Kelly, Vaver &
 // Koehler); the 40/20/40 split, the 1- and 2-touch rules and the 7-day
 // half-life are common practice with no published source (see
-// check-values.md §2).
+// docs/references.md §2).
 //
 // Apportion turns weights into integer units (cents, micro-units) by the
 // largest-remainder method: floor(total·w_i/Σw) each, the leftover units one
@@ -53,12 +53,12 @@
 // stats.stackexchange.com/q/336227). Invariants: RE in [0, 1], shares sum to
 // 1. P = 0 gives ErrNoConversionPath and Σ RE = 0 gives ErrNoRemovalEffect,
 // never NaN. At order 1 collapsing consecutive repeats changes nothing; at
-// higher orders it does (check-values.md §3). For counts taken from complete
+// higher orders it does (docs/references.md §3). For counts taken from complete
 // journeys P equals the observed conversion rate, because the observed visit
 // counts solve the chain's forward equations.
 //
 // Removal effects are not additive across buckets: sum the counts, then call
-// Markov once (check-values.md §7).
+// Markov once (docs/references.md §7).
 //
 // Solving. Only states reachable from @entry that can reach @converted take
 // part (every other state converts with probability 0, removal or not).
@@ -88,7 +88,7 @@
 //
 // (0 where there are none), so v(N) is the overall conversion rate; this is
 // the conversion-rate reading of Dalessandro, Perlich, Stitelman & Provost
-// (2012) applied to the population confined to S (check-values.md §4). Inputs
+// (2012) applied to the population confined to S (docs/references.md §4). Inputs
 // are Coalition counts (journeys and conversions per exact channel set),
 // which add across buckets; the subset sums come from a zeta transform. More
 // channels than the limit are pooled: the limit−1 channels with the most
@@ -100,9 +100,9 @@
 // Shapley value equals splitting each coalition's conversions evenly over
 // its channels (Zhao, Mahboobi & Bagheri 2018); tests use this identity.
 // Like removal effects, conversion-rate Shapley credit is recomputed from
-// merged counts, never summed per bucket (check-values.md §7).
+// merged counts, never summed per bucket (docs/references.md §7).
 //
-// Citations marked [memory] in check-values.md (Anderl et al., Kemeny &
+// Citations marked "from memory" in docs/references.md (Anderl et al., Kemeny &
 // Snell, Shapley's volume details, Dalessandro et al.'s venue) should be
 // checked against the publisher before they are quoted elsewhere.
 package credit

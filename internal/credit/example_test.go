@@ -9,7 +9,7 @@ import (
 
 // A 50.00 conversion after five touches, 28, 21, 14, 7 and 0 days before it,
 // under time decay with the default 7-day half-life: 50/31 × (1, 2, 4, 8, 16)
-// (check-values.md §2), rounded to cents with the sum kept exact.
+// (docs/references.md §2), rounded to cents with the sum kept exact.
 func ExampleWeights() {
 	conv := time.Date(2026, 3, 10, 12, 0, 0, 0, time.UTC)
 	var touches []credit.Touch
@@ -29,8 +29,8 @@ func ExampleWeights() {
 	// direct       25.8065  2581
 }
 
-// Journeys A>B>C>conversion, A>null and B>C>null at order 1 (check-values.md
-// §3, EX1): P = 1/3 and shares 0.2 / 0.4 / 0.4.
+// Journeys A → B → C → @converted, A → @lost and B → C → @lost at order 1
+// (docs/references.md §3 EX1): P = 1/3 and shares 0.2 / 0.4 / 0.4.
 func ExampleMarkov() {
 	sum := map[credit.Transition]int64{}
 	var steps []credit.Transition
@@ -63,7 +63,7 @@ func ExampleMarkov() {
 	// C removal effect 1.00 share 0.40
 }
 
-// The three-channel example of check-values.md §4: 50 conversions shared by
+// The three-channel example of docs/references.md §4: 50 conversions shared by
 // conversion-rate Shapley values, with each channel's journey support.
 func ExampleShapley() {
 	coalitions := []credit.Coalition{

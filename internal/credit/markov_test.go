@@ -82,7 +82,7 @@ func TestStateOfAndChannels(t *testing.T) {
 	}
 }
 
-// Expected transitions follow the state definition of check-values.md §3
+// Expected transitions follow the state definition of docs/references.md §3
 // item 6: the tuple of the last <= k channels, @entry-padded prefixes first.
 func TestPathTransitions(t *testing.T) {
 	st := func(cs ...string) string { return StateOf(cs) }
@@ -139,7 +139,7 @@ func TestPathTransitionsAllocations(t *testing.T) {
 	}
 }
 
-// markovCase is one worked example of check-values.md §3 [computed; exact
+// markovCase is one worked example of docs/references.md §3 [computed; exact
 // fractions]; method Anderl, Becker, von Wangenheim & Schumann (2016).
 // NaN p and nil slices mean the source gives no value to check.
 type markovCase struct {
@@ -164,29 +164,29 @@ var (
 )
 
 var markovCases = []markovCase{
-	// check-values.md §3 EX1; also issue 3 (P 1/3, RE 1/2, 1, 1, shares 0.2/0.4/0.4).
+	// docs/references.md §3 EX1; also issue 3 (P 1/3, RE 1/2, 1, 1, shares 0.2/0.4/0.4).
 	{"EX1 order 1", ex1, 1, true, []string{"A", "B", "C"}, 1.0 / 3, []float64{0.5, 1, 1}, []float64{0.2, 0.4, 0.4}},
-	// check-values.md §3 EX1: "Second order gives the same numbers".
+	// docs/references.md §3 EX1: order 2 gives the same P and shares.
 	{"EX1 order 2", ex1, 2, true, []string{"A", "B", "C"}, 1.0 / 3, nil, []float64{0.2, 0.4, 0.4}},
-	// check-values.md §3 EX2a.
+	// docs/references.md §3 EX2a.
 	{"EX2a loop", ex2, 1, true, []string{"A", "B"}, 1, []float64{1, 0.5}, []float64{2.0 / 3, 1.0 / 3}},
-	// check-values.md §3 EX2b; also issue 3 (P 1/2, shares 2/3, 1/3).
+	// docs/references.md §3 EX2b; also issue 3 (P 1/2, shares 2/3, 1/3).
 	{"EX2b order 1", ex2b, 1, true, []string{"A", "B"}, 0.5, []float64{1, 0.5}, []float64{2.0 / 3, 1.0 / 3}},
 	{"EX2b order 2", ex2b, 2, true, []string{"A", "B"}, 0.5, []float64{1, 1}, []float64{0.5, 0.5}},
-	// check-values.md §3 EX3, collapsed or not.
+	// docs/references.md §3 EX3, collapsed or not.
 	{"EX3 order 1 collapsed", ex3, 1, true, []string{"A", "B"}, 1.0 / 3, []float64{0.5, 1}, []float64{1.0 / 3, 2.0 / 3}},
 	{"EX3 order 1 repeats kept", ex3, 1, false, []string{"A", "B"}, 1.0 / 3, []float64{0.5, 1}, []float64{1.0 / 3, 2.0 / 3}},
 	{"EX3 order 2 collapsed", ex3, 2, true, []string{"A", "B"}, math.NaN(), nil, []float64{0.5, 0.5}},
 	{"EX3 order 2 repeats kept", ex3, 2, false, []string{"A", "B"}, math.NaN(), nil, []float64{0.5, 0.5}},
-	// check-values.md §3 EX4; also issue 3 (1/4, 1/4, 1/2 at order 1; 1/2, 0, 1/2 at order 2).
+	// docs/references.md §3 EX4; also issue 3 (1/4, 1/4, 1/2 at order 1; 1/2, 0, 1/2 at order 2).
 	{"EX4 order 1", ex4, 1, true, []string{"A", "B", "C"}, 0.5, []float64{0.5, 0.5, 1}, []float64{0.25, 0.25, 0.5}},
 	{"EX4 order 2", ex4, 2, true, []string{"A", "B", "C"}, math.NaN(), []float64{1, 0, 1}, []float64{0.5, 0, 0.5}},
-	// check-values.md §3 EX5.
+	// docs/references.md §3 EX5.
 	{"EX5 order 1 collapsed", ex5, 1, true, []string{"A", "B"}, 2.0 / 3, []float64{0.75, 0.5}, []float64{0.6, 0.4}},
 	{"EX5 order 1 repeats kept", ex5, 1, false, []string{"A", "B"}, 2.0 / 3, []float64{0.75, 0.5}, []float64{0.6, 0.4}},
 	{"EX5 order 2 repeats kept", ex5, 2, false, []string{"A", "B"}, math.NaN(), nil, []float64{0.6, 0.4}},
 	{"EX5 order 2 collapsed", ex5, 2, true, []string{"A", "B"}, math.NaN(), []float64{0.5, 0.5}, []float64{0.5, 0.5}},
-	// check-values.md §3 EX6 (grouped paths).
+	// docs/references.md §3 EX6 (grouped paths).
 	{"EX6", ex6, 1, true, []string{"G", "M"}, 0.8, []float64{0.75, 0.5}, []float64{0.6, 0.4}},
 }
 
@@ -264,7 +264,7 @@ func TestMarkovPublic(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	// check-values.md §3 EX1.
+	// docs/references.md §3 EX1.
 	if want := []float64{0.2, 0.4, 0.4}; !nearSlice(got.Share, want, 1e-12) {
 		t.Errorf("Share = %v, want %v", got.Share, want)
 	}
@@ -282,7 +282,7 @@ func denseQ(ch *chain) *mat.Dense {
 	return q
 }
 
-// check-values.md §3 EX1 and EX2b [computed; exact]: the fundamental matrix
+// docs/references.md §3 EX1 and EX2b [computed; exact]: the fundamental matrix
 // N = (I − Q)^−1 and the conversion column of B = N R, per state.
 func TestMarkovFundamentalMatrix(t *testing.T) {
 	tests := []struct {
@@ -344,8 +344,8 @@ func TestMarkovFundamentalMatrix(t *testing.T) {
 }
 
 // The app-navigation chain of stats.stackexchange.com/q/336227 with
-// "Notification Center" sent to Exit: purchase probability 11.4 % [source],
-// exactly 5/44 [computed, check-values.md §3]. Open App is @entry; the
+// "Notification Center" sent to Exit: purchase probability 11.4 % [published],
+// exactly 5/44 [computed, docs/references.md §3]. Open App is @entry; the
 // printed probabilities become counts out of 20.
 func TestMarkovStackExchangeRemoval(t *testing.T) {
 	const social, store, notif = "social", "store", "notification_center"
@@ -388,7 +388,7 @@ func TestMarkovStackExchangeRemoval(t *testing.T) {
 	}
 }
 
-// check-values.md §7 [computed]: transition counts add across buckets, but
+// docs/references.md §7 [computed]: transition counts add across buckets, but
 // removal-effect credits do not. Bucket 1 = EX1, bucket 2 = EX4, one
 // conversion each.
 func TestMarkovMergeBuckets(t *testing.T) {
@@ -470,7 +470,7 @@ func randomJourneys(r *rand.Rand, count, channels, maxLen int) []journey {
 	return js
 }
 
-// check-values.md §3 "Repeated consecutive touches" [computed]: at order 1,
+// docs/references.md §3 "Repeated consecutive touches" [computed]: at order 1,
 // collapsing repeats changes neither P(conv) nor any removal effect.
 func TestMarkovCollapseOrder1(t *testing.T) {
 	r := rand.New(rand.NewPCG(3, 1))
@@ -620,7 +620,7 @@ func TestMarkovSolversAgree(t *testing.T) {
 // For counts from complete journeys the observed visit counts solve the
 // chain's forward equations (every visit to a state is entered once and left
 // once), so P(conv) equals the observed conversion rate at any order, with or
-// without collapsing [derived; consistent with every P of check-values.md §3:
+// without collapsing [derived; consistent with every P of docs/references.md §3:
 // EX1 1/3, EX2b 1/2, EX5 2/3, EX6 4/5].
 func TestMarkovConversionRateIdentity(t *testing.T) {
 	r := rand.New(rand.NewPCG(5, 8))

@@ -48,7 +48,7 @@ func TestModelNames(t *testing.T) {
 	}
 }
 
-// check-values.md §2, worked example V = 50.00 with five touches
+// docs/references.md §2, worked example V = 50.00 with five touches
 // [computed]; the rules are common practice (issue 2 item 6).
 func TestWeightsFiveTouches(t *testing.T) {
 	touches := touchesAgo(
@@ -80,7 +80,7 @@ func TestWeightsFiveTouches(t *testing.T) {
 	}
 }
 
-// check-values.md §2: U-shape 40/20/40 applied to 50 for n = 1..5
+// docs/references.md §2: position-based 40/20/40 applied to 50 for n = 1..5
 // [computed; split ratios common practice].
 func TestPositionBasedLengths(t *testing.T) {
 	tests := []struct {
@@ -131,7 +131,7 @@ func TestPositionBasedCustomWeights(t *testing.T) {
 	}
 }
 
-// check-values.md §2: time decay with Δt not a multiple of h: Δt = 10.5 d,
+// docs/references.md §2: time decay with Δt not a multiple of h: Δt = 10.5 d,
 // 3.5 d, 0 with h = 7 d give 8.578644, 17.157288, 24.264069 of 50
 // [computed; tolerance 1e-6 as given].
 func TestTimeDecayNonMultiple(t *testing.T) {
@@ -156,7 +156,7 @@ func TestTimeDecayExtremes(t *testing.T) {
 }
 
 // Last-marketing: the last touch whose channel is not the direct channel;
-// if all are direct, the last (issue 2 item 6; check-values.md §2).
+// if all are direct, the last (issue 2 item 6; docs/references.md §2).
 func TestLastMarketing(t *testing.T) {
 	tests := []struct {
 		name     string
@@ -217,7 +217,7 @@ func TestParamsValidate(t *testing.T) {
 	}
 }
 
-// check-values.md §2 "Rounding to cents" [computed]: largest remainder, ties
+// docs/references.md §2 "Rounding to cents" [computed]: largest remainder, ties
 // to the earlier touch (common practice, no source).
 func TestApportion(t *testing.T) {
 	third := []float64{1.0 / 3, 1.0 / 3, 1.0 / 3}

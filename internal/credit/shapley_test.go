@@ -9,7 +9,7 @@ import (
 	"testing"
 )
 
-// threeChannel is the worked example of check-values.md §4 [computed;
+// threeChannel is the worked example of docs/references.md §4 [computed;
 // exact]: journeys and conversions per exact channel set over A, B, C.
 var threeChannel = []Coalition{
 	{Channels: []string{"A"}, Journeys: 100, Conversions: 10},
@@ -55,7 +55,7 @@ func subsetSum(r map[uint32]float64) func(uint32) float64 {
 	}
 }
 
-// check-values.md §4, three-channel example, three value functions
+// docs/references.md §4, three-channel example, three value functions
 // [computed; exact]; formula Shapley (1953).
 func TestShapleyValuesThreeChannel(t *testing.T) {
 	players := []string{"A", "B", "C"}
@@ -83,7 +83,7 @@ func TestShapleyValuesThreeChannel(t *testing.T) {
 	}
 }
 
-// check-values.md §4, touchledger's shapley model box [computed; exact]:
+// docs/references.md §4, touchledger's shapley [computed; exact]:
 // v(S) = conversion rate of the journeys whose channel set lies inside S.
 func TestShapleyConversionRateInsideS(t *testing.T) {
 	got, err := Shapley(threeChannel, 15, "other")
@@ -202,7 +202,7 @@ func TestShapleyAxioms(t *testing.T) {
 	}
 }
 
-// Zhao, Mahboobi & Bagheri (2018) identity (check-values.md §4, item 1):
+// Zhao, Mahboobi & Bagheri (2018) identity (docs/references.md §4, item 1):
 // with v(S) = Σ_{T ⊆ S} R_T the Shapley value equals splitting each
 // coalition's conversions evenly over its channels. Checked on the worked
 // example (A 22 = 10 + 12/2 + 6/2 + 9/3) and on random data.
@@ -299,7 +299,7 @@ func TestShapleyPooling(t *testing.T) {
 	}
 }
 
-// check-values.md §7 [computed]: coalition counts add across buckets; the
+// docs/references.md §7 [computed]: coalition counts add across buckets; the
 // subset-sum (simplified) Shapley value is additive, the conversion-rate
 // Shapley value is not and must be recomputed from the merged counts.
 func TestShapleyMergeBuckets(t *testing.T) {
@@ -395,7 +395,7 @@ func TestShapleyErrors(t *testing.T) {
 		})
 	}
 	// Negative Shapley values are reported as they are: C in the exact-set
-	// example of check-values.md §4 gets −5/6 (see TestShapleyValuesThreeChannel).
+	// example of docs/references.md §4 gets −5/6 (see TestShapleyValuesThreeChannel).
 	if _, err := Shapley(many, 3, "other"); err != nil {
 		t.Errorf("three players within the limit: %v", err)
 	}

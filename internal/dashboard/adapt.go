@@ -4,11 +4,9 @@ import (
 	"fmt"
 	"math"
 	"sort"
-	"strings"
 	"time"
 
 	"github.com/touchledger/touchledger/internal/event"
-	"github.com/touchledger/touchledger/internal/pathstats"
 	"github.com/touchledger/touchledger/internal/query"
 )
 
@@ -132,40 +130,66 @@ type ModelCredit struct {
 	Err    error
 }
 
-// ModelSeries turns credit answers into groups (one per model that
-// answered) and one series per channel of credit shares; a channel a model
-// did not credit has share 0. Folded channels are summed.
-func ModelSeries(credits []ModelCredit, ch Channels) ([]string, []Series) {
-	var groups []string
-	var answered []ModelCredit
+// ModelDots turns credit answers into the rows of the model comparison:
+// the models that answered (labelled with query.ModelLabel) and one row per
+// channel holding each model's share of credit.
+//
+// Without a truth the shares are the answers' own, over every channel
+// (folded as ch folds them). With a truth they are query.Scorecard's: each
+// model's credit restricted to the truth's channels and normalised there, so
+// a model's marks and the ring of the true share (incremental conversions /
+// incremental total) sum to 1 over the same channels, exactly as `query
+// scorecard` prints them; the direct channel, which a simulation cannot
+// switch off, has no row then.
+func ModelDots(credits []ModelCredit, ch Channels, truth *query.Truth) ([]string, []DotRow) {
+	var models []string
+	var answered []query.CreditAnswer
 	for _, m := range credits {
 		if m.Err == nil {
-			groups = append(groups, m.Model)
-			answered = append(answered, m)
+			models = append(models, query.ModelLabel(m.Answer.Model, m.Answer.Order))
+			answered = append(answered, m.Answer)
 		}
 	}
-	series := make([]Series, len(ch.Names))
+	if truth != nil {
+		sc := query.Scorecard(answered, *truth)
+		byLabel := map[string]query.ModelScore{}
+		for _, s := range sc.Models {
+			byLabel[query.ModelLabel(s.Model, s.Order)] = s
+		}
+		rows := make([]DotRow, len(sc.Channels))
+		for i, name := range sc.Channels {
+			r := DotRow{Name: name, HasRef: true, Ref: sc.True[i], Values: make([]float64, len(models)), Tips: make([]string, len(models))}
+			for m, label := range models {
+				r.Values[m] = byLabel[label].Share[i]
+				r.Tips[m] = label + " · " + name + ": " + Percent.format(r.Values[m]) + " of the credit over the simulated channels (true share " +
+					Percent.format(r.Ref) + ")"
+			}
+			rows[i] = r
+		}
+		return models, rows
+	}
+	rows := make([]DotRow, len(ch.Names))
 	idx := map[string]int{}
 	for i, n := range ch.Names {
 		idx[n] = i
-		series[i] = Series{Name: n, Color: ch.Colors[n], Values: make([]float64, len(groups)), Tips: make([]string, len(groups))}
+		rows[i] = DotRow{Name: n, Values: make([]float64, len(models)), Tips: make([]string, len(models))}
 	}
-	for g, m := range answered {
-		conv := make([]float64, len(series))
-		for _, c := range m.Answer.Channels {
+	for m, a := range answered {
+		conv := make([]float64, len(rows))
+		for _, c := range a.Channels {
 			i, ok := idx[ch.Of(c.Channel)]
 			if !ok {
 				continue
 			}
-			series[i].Values[g] += c.Share
+			rows[i].Values[m] += c.Share
 			conv[i] += c.Conversions
 		}
-		for i := range series {
-			series[i].Tips[g] = m.Model + " · " + series[i].Name + ": " + Percent.format(series[i].Values[g]) +
+		for i := range rows {
+			rows[i].Tips[m] = models[m] + " · " + rows[i].Name + ": " + Percent.format(rows[i].Values[m]) +
 				" of credit (" + Number.format(conv[i]) + " conversions)"
 		}
 	}
-	return groups, series
+	return models, rows
 }
 
 // Row and column markers of the channel transition matrix, as the query
@@ -222,27 +246,121 @@ func TransitionGrid(a query.TransitionsAnswer) (rows, cols []string, cells [][]H
 	return rows, cols, cells
 }
 
-// FlowFrom builds the flow of the main action paths, with all action
-// transitions for the tooltips.
-func FlowFrom(paths query.PathsAnswer, actions query.TransitionsAnswer) FlowData {
-	d := FlowData{Sessions: paths.Total, Start: event.StateEntry, End: event.StateExit}
-	for _, p := range paths.Paths {
-		if p.Path == "" {
-			continue
+// maxNextActions is how many actions the next-step table shows as rows and
+// columns; the rest are folded into OtherActions.
+const maxNextActions = 9
+
+// OtherActions names the folded actions of the next-step table.
+const OtherActions = "(other actions)"
+
+// NextStepsFrom builds the next-step table from the action transitions of
+// sessions (@entry → a1 → … → an → @exit, repeats kept): rows are @entry,
+// then the actions; columns the actions, then @exit. Actions are ordered as
+// the funnel steps first, then by the steps that leave them (most first,
+// then by name); beyond maxNextActions the least used are folded into
+// OtherActions. A row's shares are its transitions over all transitions out
+// of it, so they sum to 1 across the row (the answer's row probabilities,
+// added up where actions are folded).
+func NextStepsFrom(actions query.TransitionsAnswer, funnelSteps []string) ([]NextRow, []string) {
+	out := map[string]int64{}
+	for _, t := range actions.Transitions {
+		if t.From != event.StateEntry {
+			out[t.From] += t.Count
 		}
-		d.Paths = append(d.Paths, FlowPath{Steps: strings.Split(p.Path, pathstats.PathSeparator), Count: p.Count, Conversions: p.Conversions})
+		if t.To != event.StateExit {
+			out[t.To] += 0
+		}
+	}
+	if len(actions.Transitions) == 0 {
+		return nil, nil
+	}
+	rank := map[string]int{}
+	for i, s := range funnelSteps {
+		rank[s] = i + 1
+	}
+	names := make([]string, 0, len(out))
+	for n := range out {
+		names = append(names, n)
+	}
+	sort.Slice(names, func(i, j int) bool {
+		a, b := names[i], names[j]
+		if (rank[a] > 0) != (rank[b] > 0) {
+			return rank[a] > 0
+		}
+		if rank[a] != rank[b] {
+			return rank[a] < rank[b]
+		}
+		if out[a] != out[b] {
+			return out[a] > out[b]
+		}
+		return a < b
+	})
+	kept := map[string]bool{}
+	folded := false
+	if len(names) > maxNextActions {
+		byUse := append([]string{}, names...)
+		sort.SliceStable(byUse, func(i, j int) bool { return out[byUse[i]] > out[byUse[j]] })
+		for _, n := range byUse[:maxNextActions-1] {
+			kept[n] = true
+		}
+		var keep []string
+		for _, n := range names {
+			if kept[n] {
+				keep = append(keep, n)
+			}
+		}
+		names, folded = keep, true
+	} else {
+		for _, n := range names {
+			kept[n] = true
+		}
+	}
+	of := func(s string) string {
+		if s == event.StateEntry || s == event.StateExit || kept[s] {
+			return s
+		}
+		return OtherActions
+	}
+	if folded {
+		names = append(names, OtherActions)
+	}
+	cols := append(append([]string{}, names...), event.StateExit)
+	rowNames := append([]string{event.StateEntry}, names...)
+	col := map[string]int{}
+	for j, c := range cols {
+		col[c] = j
+	}
+	row := map[string]int{}
+	rows := make([]NextRow, len(rowNames))
+	for i, n := range rowNames {
+		row[n] = i
+		rows[i] = NextRow{From: n, Cells: make([]NextCell, len(cols))}
 	}
 	for _, t := range actions.Transitions {
-		d.Next = append(d.Next, FlowLink{From: t.From, To: t.To, Count: t.Count, Probability: t.Probability})
+		i, okR := row[of(t.From)]
+		j, okC := col[of(t.To)]
+		if !okR || !okC || t.Count == 0 {
+			continue
+		}
+		rows[i].Total += t.Count
+		rows[i].Cells[j].Has = true
+		rows[i].Cells[j].Count += t.Count
 	}
-	return d
+	for i := range rows {
+		for j := range rows[i].Cells {
+			if c := &rows[i].Cells[j]; c.Has {
+				c.Share = float64(c.Count) / float64(rows[i].Total)
+			}
+		}
+	}
+	return rows, cols
 }
 
 // FunnelBars lists a funnel answer's steps.
 func FunnelBars(a query.FunnelAnswer) []FunnelBar {
 	out := make([]FunnelBar, len(a.Steps))
 	for i, s := range a.Steps {
-		out[i] = FunnelBar{Step: s.Step, Sessions: s.Sessions, Abandonment: s.Abandonment}
+		out[i] = FunnelBar{Step: s.Step, Sessions: s.Sessions, Abandonment: orZero(s.Abandonment)}
 	}
 	return out
 }
@@ -304,4 +422,13 @@ func Zoom(d ControlData) (ControlData, string) {
 		}
 	}
 	return out, what
+}
+
+// orZero reads an optional share of an answer; nil (unknown: a last funnel
+// step, a step no session reached) draws as 0.
+func orZero(x *float64) float64 {
+	if x == nil {
+		return 0
+	}
+	return *x
 }

@@ -76,7 +76,12 @@ func TestBrowserRendersDashboard(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	srv := httptest.NewUnstartedServer(NewHandler(Options{Open: sharedDemo(t), Title: "touchledger · Lantern & Moss demo"}))
+	open := sharedDemo(t)
+	truth, err := shared.world.truth()
+	if err != nil {
+		t.Fatal(err)
+	}
+	srv := httptest.NewUnstartedServer(NewHandler(Options{Open: open, Title: "touchledger · Lantern & Moss demo", Truth: truth}))
 	srv.Listener.Close()
 	srv.Listener = ln
 	srv.Start()
@@ -91,7 +96,7 @@ func TestBrowserRendersDashboard(t *testing.T) {
 		t.Errorf("console messages:\n%s", strings.Join(console, "\n"))
 	}
 	for _, want := range []string{"Credit per channel per day", "Where journeys go next", "All models side by side",
-		"Action flow inside sessions", "Funnel and step abandonment", "Abandonment over time", "Abandonment close-up"} {
+		"simulated true share", "Where sessions go next", "Funnel and step abandonment", "Abandonment over time", "Abandonment close-up"} {
 		if !bytes.Contains(dom, []byte(want)) {
 			t.Errorf("rendered page lacks %q", want)
 		}

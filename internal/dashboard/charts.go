@@ -63,7 +63,8 @@ type legendItem struct {
 	label  string
 	color  string
 	dash   string
-	marker string // "line", "box" or "band"
+	marker string // "line", "box", "band", "shape" (a dot plot mark) or "ring"
+	shape  string // marker "shape": one of markShapes
 }
 
 // legend lays items out in rows within [x0, x1] from y and returns the
@@ -90,6 +91,10 @@ func (w *svgWriter) legend(items []legendItem, x0, x1, y float64) float64 {
 				kv = append(kv, "stroke-dasharray", it.dash)
 			}
 			w.empty("line", kv...)
+		case "shape":
+			w.empty("path", "d", markPath(it.shape, x+swatch/2, cy, 4.5), "fill", it.color)
+		case "ring":
+			w.empty("circle", "cx", num(x+swatch/2), "cy", num(cy), "r", "6", "fill", "none", "stroke", it.color, "stroke-width", "2")
 		case "band":
 			w.empty("rect", "x", num(x), "y", num(cy-6), "width", num(swatch), "height", "12", "fill", it.color, "fill-opacity", "0.18")
 		default:
@@ -246,52 +251,5 @@ func LineChart(x []string, series []Series, f Frame) []byte {
 		}
 		w.close("g")
 	}
-	return w.bytes()
-}
-
-// GroupedBars draws, for each group (e.g. a model), one bar per series (e.g.
-// a channel) side by side; each bar carries data-group, data-series and
-// data-value and a tooltip. The value axis includes 0. Default size 1280×320.
-func GroupedBars(groups []string, series []Series, f Frame) []byte {
-	width, height := f.size(1280, 320)
-	var w svgWriter
-	w.root("bars", f, width, height)
-	const left, right, bottom = 64.0, 20.0, 56.0
-	items := make([]legendItem, len(series))
-	for i, s := range series {
-		items[i] = legendItem{label: s.Name, color: seriesColor(s.Color, i), marker: "box"}
-	}
-	lo, hi, any := finiteRange(series)
-	if !any || len(groups) == 0 {
-		w.noData(width/2, height/2, "No credited conversions in this window yet")
-		return w.bytes()
-	}
-	top := 10 + w.legend(items, left, width-right, 8) + 14
-	ys := niceScale(math.Min(0, lo), math.Max(0, hi), 6, height-bottom, top)
-	w.valueAxis(ys, f.Unit, left, width-right, f.YLabel)
-	groupW := (width - left - right) / float64(len(groups))
-	inner := groupW * 0.84
-	barW := inner / float64(max(len(series), 1))
-	zero := ys.at(0)
-	for g, name := range groups {
-		gx := left + float64(g)*groupW + (groupW-inner)/2
-		w.open("g", "class", "group", "data-group", name)
-		for i, s := range series {
-			if g >= len(s.Values) || math.IsNaN(s.Values[g]) || math.IsInf(s.Values[g], 0) {
-				continue
-			}
-			v := s.Values[g]
-			y := ys.at(v)
-			top, h := math.Min(y, zero), math.Abs(zero-y)
-			w.tip("rect", s.tip(g, name, f.Unit), "class", "bar",
-				"x", num(gx+float64(i)*barW+0.5), "y", num(top), "width", num(math.Max(barW-1, 1)), "height", num(math.Max(h, 0.5)),
-				"fill", seriesColor(s.Color, i),
-				"data-group", name, "data-series", s.Name, "data-value", exact(v))
-		}
-		w.elem("text", clip(name, int(groupW/7)), "x", num(left+float64(g)*groupW+groupW/2), "y", num(height-bottom+18),
-			"text-anchor", "middle", "fill", colorText)
-		w.close("g")
-	}
-	w.axisTitle(f.XLabel, left, width-right, height-12)
 	return w.bytes()
 }

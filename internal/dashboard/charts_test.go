@@ -2,6 +2,7 @@ package dashboard
 
 import (
 	"math"
+	"strconv"
 	"strings"
 	"testing"
 	"time"
@@ -39,21 +40,26 @@ func goldenControl() ControlData {
 	return d
 }
 
-func goldenFlow() FlowData {
-	return FlowData{
-		Sessions: 1000, Start: "@entry", End: "@exit",
-		Paths: []FlowPath{
-			{Steps: []string{"product_view"}, Count: 500},
-			{Steps: []string{"product_view", "basket_add"}, Count: 200},
-			{Steps: []string{"product_view", "basket_add", "checkout", "order"}, Count: 120, Conversions: 120},
-			{Steps: []string{"basket_add", "product_view"}, Count: 40},
-		},
-		Next: []FlowLink{
-			{From: "@entry", To: "product_view", Count: 900, Probability: 0.9},
-			{From: "@entry", To: "basket_add", Count: 100, Probability: 0.1},
-			{From: "product_view", To: "basket_add", Count: 400, Probability: 0.4},
-		},
+// goldenModels and goldenDots: three models, three channels; social_ads
+// has no value from shapley (NaN) and a negative one would widen the axis.
+var (
+	goldenModels = []string{"first-touch", "last-touch", "markov (order 1)"}
+	goldenDots   = []DotRow{
+		{Name: "search_ads", Values: []float64{0.5, 0.25, 0.4}, HasRef: true, Ref: 0.45},
+		{Name: "social_ads", Values: []float64{0.3, 0.25, math.NaN()}, HasRef: true, Ref: 0.2},
+		{Name: "newsletter", Values: []float64{0.2, 0.5, 0.6}, HasRef: true, Ref: 0.35},
 	}
+)
+
+// goldenNext: 1000 sessions; from @entry 900 go to product_view, 100 to
+// basket_add; from product_view 400 of 1000 steps go to basket_add.
+func goldenNext() ([]NextRow, []string) {
+	cols := []string{"product_view", "basket_add", "@exit"}
+	return []NextRow{
+		{From: "@entry", Total: 1000, Cells: []NextCell{{Has: true, Count: 900, Share: 0.9}, {Has: true, Count: 100, Share: 0.1}, {}}},
+		{From: "product_view", Total: 1000, Cells: []NextCell{{Has: true, Count: 100, Share: 0.1}, {Has: true, Count: 400, Share: 0.4}, {Has: true, Count: 500, Share: 0.5}}},
+		{From: "basket_add", Total: 500, Cells: []NextCell{{Has: true, Count: 50, Share: 0.1}, {}, {Has: true, Count: 450, Share: 0.9}}},
+	}, cols
 }
 
 // TestGoldenCharts pins the markup of every chart for fixed inputs. Review
@@ -65,17 +71,20 @@ func TestGoldenCharts(t *testing.T) {
 	}{
 		{"line.svg", LineChart(goldenDays, goldenSeries, Frame{ID: "t-line", Title: "Credit per day", Desc: "Lines.", XLabel: "day (UTC)", YLabel: "conversions credited"})},
 		{"line-empty.svg", LineChart(nil, nil, Frame{ID: "t-line-empty", Title: "Credit per day", Desc: "Lines."})},
-		{"bars.svg", GroupedBars([]string{"first-touch", "last-touch", "shapley"}, []Series{
-			{Name: "search_ads", Values: []float64{0.5, 0.25, 0.6}},
-			{Name: "social_ads", Values: []float64{0.3, 0.25, -0.1}},
-			{Name: "direct", Values: []float64{0.2, 0.5, 0.5}},
-		}, Frame{ID: "t-bars", Title: "Models", Desc: "Bars.", XLabel: "attribution model", YLabel: "share", Unit: Percent, Width: 640})},
+		{"dots.svg", DotPlot(goldenModels, goldenDots, "simulated true share", Frame{ID: "t-dots", Title: "Models", Desc: "Dots.", XLabel: "share", Unit: Percent, Width: 640})},
+		{"dots-noref.svg", DotPlot(goldenModels[:2], []DotRow{
+			{Name: "search_ads", Values: []float64{0.5, 0.6}},
+			{Name: "social_ads", Values: []float64{-0.1, 0.25}},
+		}, "", Frame{ID: "t-dots-noref", Title: "Models", Desc: "Dots.", XLabel: "share", Unit: Percent, Width: 640})},
 		{"heatmap.svg", Heatmap([]string{"@entry", "search_ads", "social_ads"}, []string{"search_ads", "social_ads", "@converted", "@lost"}, [][]HeatCell{
 			{{Has: true, Value: 0.75, Count: 75}, {Has: true, Value: 0.25, Count: 25}, {}, {}},
 			{{}, {Has: true, Value: 0.1, Count: 10}, {Has: true, Value: 0.3, Count: 30}, {Has: true, Value: 0.6, Count: 60}},
 			{{Has: true, Value: 0.0004, Count: 1}, {}, {Has: true, Value: 0.05, Count: 5}, {Has: true, Value: 0.9496, Count: 2374}},
 		}, Frame{ID: "t-heat", Title: "Transitions", Desc: "Heatmap.", XLabel: "row probability", Unit: Percent})},
-		{"flow.svg", Flow(goldenFlow(), Frame{ID: "t-flow", Title: "Flow", Desc: "Flow.", Width: 960, Height: 360})},
+		{"nextsteps.svg", func() []byte {
+			rows, cols := goldenNext()
+			return NextSteps(rows, cols, "@exit", Frame{ID: "t-next", Title: "Next steps", Desc: "Table of bars.", Width: 640})
+		}()},
 		{"funnel.svg", FunnelChart([]FunnelBar{
 			{Step: "product_view", Sessions: 1000, Abandonment: 0.6},
 			{Step: "basket_add", Sessions: 400, Abandonment: 0.5},
@@ -116,9 +125,11 @@ func TestChartsEscapeNames(t *testing.T) {
 			cells[i][j] = HeatCell{Has: true, Value: 0.5, Count: 2}
 		}
 	}
-	var paths []FlowPath
+	var dots []DotRow
+	var next []NextRow
 	for _, h := range hostile {
-		paths = append(paths, FlowPath{Steps: []string{h, "product_view"}, Count: 3})
+		dots = append(dots, DotRow{Name: h, Values: []float64{0.2, 0.3}, HasRef: true, Ref: 0.25})
+		next = append(next, NextRow{From: h, Total: 4, Cells: []NextCell{{Has: true, Count: 2, Share: 0.5}, {Has: true, Count: 2, Share: 0.5}}})
 	}
 	var steps []FunnelBar
 	for _, h := range hostile {
@@ -127,9 +138,9 @@ func TestChartsEscapeNames(t *testing.T) {
 	f := Frame{ID: `"><script>`, Title: hostile[0], Desc: hostile[1], XLabel: hostile[2], YLabel: hostile[0]}
 	charts := map[string][]byte{
 		"line":    LineChart([]string{hostile[0], hostile[1]}, series, f),
-		"bars":    GroupedBars([]string{hostile[0], hostile[1]}, series, f),
+		"dots":    DotPlot([]string{hostile[0], hostile[1]}, dots, hostile[2], f),
 		"heatmap": Heatmap(hostile, hostile, cells, f),
-		"flow":    Flow(FlowData{Sessions: 10, Paths: paths, Start: "@entry", End: "@exit"}, f),
+		"next":    NextSteps(next, []string{hostile[1], hostile[2]}, hostile[2], f),
 		"funnel":  FunnelChart(steps, f),
 		"control": ControlChart(goldenControl(), f),
 	}
@@ -151,7 +162,7 @@ func TestChartsEscapeNames(t *testing.T) {
 			// The first hostile name must come back intact from a data attribute.
 			found := false
 			for _, n := range root.all(func(*xnode) bool { return true }) {
-				for _, k := range []string{"data-series", "data-row", "data-node", "data-step", "data-from"} {
+				for _, k := range []string{"data-series", "data-row", "data-model", "data-step", "data-col"} {
 					if n.attr[k] == hostile[0] {
 						found = true
 					}
@@ -239,50 +250,105 @@ func TestControlChartValues(t *testing.T) {
 	}
 }
 
-// TestFlowLinksSumPaths checks that every link's width value is the sum of
-// the paths through it, and every node's value the sum of the paths that
-// reach it, computed here from the paths alone.
-func TestFlowLinksSumPaths(t *testing.T) {
-	d := goldenFlow()
-	root := parseXML(t, Flow(d, Frame{ID: "f"}))
-	wantLinks := map[string]int64{}
-	wantNodes := map[string]int64{}
-	for _, p := range d.Paths {
-		states := append(append([]string{"@entry"}, p.Steps...), "@exit")
-		for i, s := range states {
-			wantNodes[exactInt(int64(i))+"|"+s] += p.Count
-			if i > 0 {
-				wantLinks[exactInt(int64(i-1))+"|"+states[i-1]+"|"+s] += p.Count
+// TestDotPlotValues checks that every model value is one mark carrying it
+// (NaN draws none), that each row's spread bar runs from its smallest to its
+// largest value and that each reference is a ring with its value.
+func TestDotPlotValues(t *testing.T) {
+	root := parseXML(t, DotPlot(goldenModels, goldenDots, "truth", Frame{ID: "d", Unit: Percent}))
+	got := map[[2]string]float64{}
+	marks := root.all(func(n *xnode) bool { return n.attr["class"] == "mark" })
+	for _, n := range marks {
+		got[[2]string{n.attr["data-row"], n.attr["data-model"]}] = float(t, n.attr["data-value"])
+	}
+	want := 0
+	for _, r := range goldenDots {
+		lo, hi := math.Inf(1), math.Inf(-1)
+		for m, v := range r.Values {
+			k := [2]string{r.Name, goldenModels[m]}
+			if math.IsNaN(v) {
+				if _, ok := got[k]; ok {
+					t.Errorf("%v: NaN drew a mark", k)
+				}
+				continue
+			}
+			want++
+			lo, hi = math.Min(lo, v), math.Max(hi, v)
+			if got[k] != v {
+				t.Errorf("%v = %v, want %v", k, got[k], v)
+			}
+		}
+		spread := root.all(func(n *xnode) bool { return n.attr["class"] == "spread" && n.attr["data-row"] == r.Name })
+		if len(spread) != 1 || float(t, spread[0].attr["data-min"]) != lo || float(t, spread[0].attr["data-max"]) != hi {
+			t.Errorf("%s: spread %v, want one from %v to %v", r.Name, spread, lo, hi)
+		}
+		rings := root.all(func(n *xnode) bool { return n.attr["class"] == "ref" && n.attr["data-row"] == r.Name })
+		if len(rings) != 1 || float(t, rings[0].attr["data-value"]) != r.Ref || rings[0].attr["fill"] != "none" {
+			t.Errorf("%s: rings %v, want one hollow ring at %v", r.Name, rings, r.Ref)
+		}
+	}
+	if len(marks) != want {
+		t.Errorf("%d marks, want %d", len(marks), want)
+	}
+	// Each model keeps one colour and one shape on every row.
+	for m, name := range goldenModels {
+		colors, shapes := map[string]bool{}, map[int]bool{}
+		for _, n := range marks {
+			if n.attr["data-model"] == name {
+				colors[n.attr["fill"]] = true
+				shapes[strings.Count(n.attr["d"], "L")] = true
+			}
+		}
+		if len(colors) != 1 || !colors[modelColor(m)] || len(shapes) != 1 {
+			t.Errorf("%s: colours %v shapes %v, want only %s and one shape", name, colors, shapes, modelColor(m))
+		}
+	}
+}
+
+// TestNextStepsValues checks that each observed cell carries its share and
+// count, cells without sessions draw no bar, rows carry their totals and
+// the bar ending the session has its own colour.
+func TestNextStepsValues(t *testing.T) {
+	rows, cols := goldenNext()
+	root := parseXML(t, NextSteps(rows, cols, "@exit", Frame{ID: "n"}))
+	cells := root.all(func(n *xnode) bool { return n.attr["class"] == "cell" })
+	want := 0
+	for _, r := range rows {
+		rowNodes := root.all(func(n *xnode) bool { return n.attr["class"] == "row" && n.attr["data-row"] == r.From })
+		if len(rowNodes) != 1 || rowNodes[0].attr["data-value"] != exactInt(r.Total) {
+			t.Errorf("row %s: %v, want one with total %d", r.From, rowNodes, r.Total)
+		}
+		for j, c := range r.Cells {
+			found := root.all(func(n *xnode) bool {
+				return n.attr["class"] == "cell" && n.attr["data-row"] == r.From && n.attr["data-col"] == cols[j]
+			})
+			if !c.Has {
+				if len(found) != 0 {
+					t.Errorf("%s → %s: drawn without sessions", r.From, cols[j])
+				}
+				continue
+			}
+			want++
+			if len(found) != 1 || float(t, found[0].attr["data-value"]) != c.Share || found[0].attr["data-count"] != exactInt(c.Count) {
+				t.Errorf("%s → %s: %v, want share %v count %d", r.From, cols[j], found, c.Share, c.Count)
+				continue
+			}
+			bar := found[0].all(func(n *xnode) bool { return n.attr["class"] == "bar" })
+			wantColor := colorNext
+			if cols[j] == "@exit" {
+				wantColor = colorExit
+			}
+			if len(bar) != 1 || bar[0].attr["fill"] != wantColor {
+				t.Errorf("%s → %s: bar %v, want one in %s", r.From, cols[j], bar, wantColor)
 			}
 		}
 	}
-	gotLinks := map[string]int64{}
-	for _, n := range root.all(func(n *xnode) bool { return n.attr["class"] == "link" }) {
-		gotLinks[n.attr["data-step"]+"|"+n.attr["data-from"]+"|"+n.attr["data-to"]] = int64(float(t, n.attr["data-value"]))
+	if len(cells) != want {
+		t.Errorf("%d cells, want %d", len(cells), want)
 	}
-	gotNodes := map[string]int64{}
-	for _, n := range root.all(func(n *xnode) bool { return n.attr["class"] == "node" }) {
-		gotNodes[n.attr["data-step"]+"|"+n.attr["data-node"]] = int64(float(t, n.attr["data-value"]))
-	}
-	for _, c := range []struct {
-		what      string
-		got, want map[string]int64
-	}{{"links", gotLinks, wantLinks}, {"nodes", gotNodes, wantNodes}} {
-		if len(c.got) != len(c.want) {
-			t.Errorf("%s: %d drawn, want %d", c.what, len(c.got), len(c.want))
-		}
-		for k, w := range c.want {
-			if c.got[k] != w {
-				t.Errorf("%s %s = %d, want %d", c.what, k, c.got[k], w)
-			}
-		}
-	}
-	// The tooltip of @entry → product_view quotes the all-session probability.
-	for _, n := range root.all(func(n *xnode) bool {
-		return n.attr["class"] == "link" && n.attr["data-from"] == "@entry" && n.attr["data-to"] == "product_view"
-	}) {
-		if !strings.Contains(n.title(), "90%") {
-			t.Errorf("@entry → product_view tooltip %q lacks the probability 90%%", n.title())
+	// The tooltip of @entry → product_view quotes the row share and count.
+	for _, n := range cells {
+		if n.attr["data-row"] == "@entry" && n.attr["data-col"] == "product_view" && !strings.Contains(n.title(), "90%") {
+			t.Errorf("@entry → product_view tooltip %q lacks the share 90%%", n.title())
 		}
 	}
 }
@@ -293,9 +359,9 @@ func TestEmptyChartsSayNoData(t *testing.T) {
 	f := Frame{ID: "e", Title: "Empty"}
 	for kind, svg := range map[string][]byte{
 		"line":    LineChart(nil, nil, f),
-		"bars":    GroupedBars(nil, nil, f),
+		"dots":    DotPlot(nil, nil, "", f),
 		"heatmap": Heatmap(nil, nil, nil, f),
-		"flow":    Flow(FlowData{}, f),
+		"next":    NextSteps(nil, nil, "@exit", f),
 		"funnel":  FunnelChart(nil, f),
 		"control": ControlChart(ControlData{}, f),
 	} {
@@ -305,6 +371,34 @@ func TestEmptyChartsSayNoData(t *testing.T) {
 		}
 		if len(root.all(func(n *xnode) bool { return n.attr["class"] == "no-data" })) != 1 {
 			t.Errorf("%s: no message in an empty chart", kind)
+		}
+	}
+}
+
+// TestDotPlotOffScale: a share beyond 100 % (a model with negative credit
+// elsewhere) keeps its exact data-value, sits at the axis' right end and
+// says "off scale"; the other marks keep an axis that ends at 100 %.
+func TestDotPlotOffScale(t *testing.T) {
+	root := parseXML(t, DotPlot([]string{"linear", "shapley"}, []DotRow{
+		{Name: "coupon_partners", Values: []float64{0.2, 1.6}},
+		{Name: "social_ads", Values: []float64{0.8, -0.6}},
+	}, "", Frame{ID: "o", Unit: Percent}))
+	var maxTick float64
+	for _, n := range root.all(func(n *xnode) bool { return n.name == "text" && strings.HasSuffix(n.text, "%") }) {
+		if v, err := strconv.ParseFloat(strings.TrimSuffix(n.text, "%"), 64); err == nil {
+			maxTick = math.Max(maxTick, v)
+		}
+	}
+	if maxTick != 100 {
+		t.Errorf("largest axis label %v%%, want 100%%", maxTick)
+	}
+	off := root.all(func(n *xnode) bool { return n.attr["class"] == "off-scale" })
+	if len(off) != 2 || !strings.Contains(off[0].text, "160%") || !strings.Contains(off[1].text, "-60%") {
+		t.Errorf("off-scale labels %v, want 160%% and -60%%", off)
+	}
+	for _, n := range root.all(func(n *xnode) bool { return n.attr["class"] == "mark" && n.attr["data-model"] == "shapley" }) {
+		if v := float(t, n.attr["data-value"]); v != 1.6 && v != -0.6 {
+			t.Errorf("shapley mark value %v, want the exact 1.6 or -0.6", v)
 		}
 	}
 }

@@ -7,10 +7,11 @@
 // # Charts and the answers they come from
 //
 //	credit per channel per day     Querier.Shift(model, 1, days)              LineChart
-//	all models side by side        Querier.Credit(m, "channel", 1, last) ∀ m  GroupedBars
+//	all models side by side        Querier.Credit(m, "channel", 1, last) ∀ m  DotPlot (with Options.Truth:
+//	                               (and query.Scorecard with a truth)         the true share as a ring)
 //	where journeys go next         Querier.Transitions("channel", 1, last)    Heatmap
-//	action flow inside sessions    Querier.Transitions("action", 0, last),    Flow
-//	                               Querier.Paths("action", MainPaths, last)
+//	where sessions go next         Querier.Transitions("action", 0, last),    NextSteps
+//	                               Querier.Paths("action", MainPaths, last)   (paths: the summary)
 //	funnel and step abandonment    Querier.Funnel(last)                       FunnelChart
 //	abandonment over time          Querier.Alerts(last, true)                 ControlChart (whole window, and Zoom:
 //	                                                                          the latest alert ± 4 h, else the last day)
@@ -23,9 +24,9 @@
 //
 // # Structure: pure rendering, I/O only in the handler
 //
-// The renderers (LineChart, GroupedBars, Heatmap, Flow, FunnelChart,
-// ControlChart), the adapters from query answers (ShiftSeries, ModelSeries,
-// TransitionGrid, FlowFrom, FunnelBars, ControlFrom, Zoom), Build (answers →
+// The renderers (LineChart, DotPlot, Heatmap, NextSteps, FunnelChart,
+// ControlChart), the adapters from query answers (ShiftSeries, ModelDots,
+// TransitionGrid, NextStepsFrom, FunnelBars, ControlFrom, Zoom), Build (answers →
 // page) and Render (page → HTML) do no I/O and read no clock: the same input
 // gives the same bytes. NewHandler's handler is the only part that does
 // I/O: it opens a querier per request, asks it (Fetch), builds and writes
@@ -35,10 +36,11 @@
 //
 //   - Every number a chart carries in a data attribute is the query answer's
 //     number, unrounded (shortest round-trip float formatting): data-value on
-//     each point, bar, heatmap cell, flow node and link and funnel step;
+//     each point, dot plot mark and ring, heatmap cell, next-step cell and
+//     row, and funnel step;
 //     data-values (space-separated, in time order) and data-first on the
-//     control chart's lines; data-opened and data-closed on alert bands. The
-//     flow's link and node values are sums of the main paths through them.
+//     control chart's lines; data-opened and data-closed on alert bands. A
+//     next-step cell's share is the action transition's row probability.
 //   - All text from the data (channel, campaign, action and model names)
 //     passes through XML escaping (encoding/xml.EscapeText) in the SVG and
 //     html/template escaping in the page, so no name can add markup.

@@ -33,6 +33,10 @@ type Options struct {
 	Models []string
 	// Title heads the page. Default "touchledger".
 	Title string
+	// Truth, when set, is a simulated world's true effect per channel (read
+	// with query.ReadTruth from a demo --truth file): the model comparison
+	// draws each channel's true share as a ring beside the models' marks.
+	Truth *query.Truth
 }
 
 // Parameter defaults and bounds.
@@ -130,6 +134,7 @@ func (h *handler) ServeHTTP(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	a := Fetch(q, sel, h.opts.Models)
+	a.Truth = h.opts.Truth
 	q.Close()
 	body, err := Render(Build(a, sel, h.opts.Models, h.opts.Title))
 	if err != nil {

@@ -11,6 +11,7 @@ import (
 	"strings"
 	"time"
 
+	"github.com/touchledger/touchledger/internal/event"
 	"github.com/touchledger/touchledger/internal/query"
 )
 
@@ -39,6 +40,9 @@ type Answers struct {
 	FunnelErr   error
 	Alerts      query.AlertsAnswer
 	AlertsErr   error
+	// Truth, when set, is a simulated world's true effect per channel (a
+	// demo --truth file): the model comparison shows it as rings.
+	Truth *query.Truth
 }
 
 // MainPaths is how many action paths the flow shows.
@@ -318,7 +322,13 @@ func matrixSummary(a query.TransitionsAnswer) string {
 
 func modelsChart(a Answers, sel Selection, ch Channels) Chart {
 	c := Chart{ID: "credit-models", Heading: "All models side by side", Wide: true,
-		Lead: "Each model's share of the credited conversions per channel over the last " + durationLabel(sel.Last) + "."}
+		Lead: "Each channel's share of the credited conversions under every model over the last " + durationLabel(sel.Last) +
+			": one row per channel, one mark per model; the grey bar spans the models' smallest to largest share."}
+	if a.Truth != nil {
+		c.Lead = "Each touch channel's share of the credit under every model over the last " + durationLabel(sel.Last) +
+			", next to the simulated world's true share (the ring: the conversions the channel truly caused, from the truth file). " +
+			"Shares are over the simulated channels only, as in query scorecard; the direct channel has no true effect to compare."
+	}
 	var errs []string
 	for _, m := range a.Credit {
 		if m.Err != nil {
@@ -331,64 +341,103 @@ func modelsChart(a Answers, sel Selection, ch Channels) Chart {
 	if len(errs) > 0 {
 		c.Err = "Some models could not be computed: " + strings.Join(errs, "; ")
 	}
-	groups, series := ModelSeries(a.Credit, ch)
-	if len(groups) == 0 {
+	models, rows := ModelDots(a.Credit, ch, a.Truth)
+	if len(models) == 0 {
 		return c
 	}
-	c.SVG = template.HTML(GroupedBars(groups, series, Frame{ID: c.ID, Title: "Credit share per channel under each model",
-		Desc:   "Grouped bars: one group per attribution model, one bar per channel, the bar's height its share of credited conversions.",
-		XLabel: "attribution model", YLabel: "share of credited conversions", Unit: Percent}))
-	c.Summary = modelsSummary(groups, series)
-	c.Table = Table{Caption: "Share of credited conversions", Head: append([]string{"channel"}, groups...)}
-	for _, s := range series {
-		row := []string{s.Name}
-		for _, v := range s.Values {
+	desc := "Dot plot: one row per channel, one mark per attribution model (each model its own colour and shape) at the channel's share of credited conversions."
+	if a.Truth != nil {
+		desc += " A ring marks the simulated true share."
+	}
+	c.SVG = template.HTML(DotPlot(models, rows, "simulated true share", Frame{ID: c.ID, Title: "Credit share per channel under each model",
+		Desc: desc, XLabel: "share of credited conversions", Unit: Percent}))
+	c.Summary = modelsSummary(models, rows, a.Truth != nil)
+	head := append([]string{"channel"}, models...)
+	if a.Truth != nil {
+		head = append(head, "true share")
+	}
+	c.Table = Table{Caption: "Share of credited conversions", Head: head}
+	for _, r := range rows {
+		row := []string{r.Name}
+		for _, v := range r.Values {
 			row = append(row, Percent.format(v))
+		}
+		if r.HasRef {
+			row = append(row, Percent.format(r.Ref))
 		}
 		c.Table.Rows = append(c.Table.Rows, row)
 	}
 	return c
 }
 
-func modelsSummary(groups []string, series []Series) string {
-	if len(groups) < 2 || len(series) == 0 {
+// modelsSummary names the channel the models disagree about most and, with
+// a truth, the model closest to it (smallest Σ|share − true share|).
+func modelsSummary(models []string, rows []DotRow, truth bool) string {
+	if len(models) < 2 || len(rows) == 0 {
 		return ""
 	}
 	best, bestRange := -1, -1.0
 	var lo, hi int
-	for i, s := range series {
+	for i, r := range rows {
 		l, h := 0, 0
-		for g, v := range s.Values {
-			if v < s.Values[l] {
-				l = g
+		for m, v := range r.Values {
+			if v < r.Values[l] {
+				l = m
 			}
-			if v > s.Values[h] {
-				h = g
+			if v > r.Values[h] {
+				h = m
 			}
 		}
-		if r := s.Values[h] - s.Values[l]; r > bestRange {
-			best, bestRange, lo, hi = i, r, l, h
+		if d := r.Values[h] - r.Values[l]; d > bestRange {
+			best, bestRange, lo, hi = i, d, l, h
 		}
 	}
-	s := series[best]
-	return fmt.Sprintf("The models disagree most about %s: from %s of credit (%s) to %s (%s).",
-		s.Name, Percent.format(s.Values[lo]), groups[lo], Percent.format(s.Values[hi]), groups[hi])
+	r := rows[best]
+	s := fmt.Sprintf("The models disagree most about %s: from %s of credit (%s) to %s (%s).",
+		r.Name, Percent.format(r.Values[lo]), models[lo], Percent.format(r.Values[hi]), models[hi])
+	if truth {
+		closest, err := -1, math.Inf(1)
+		for m := range models {
+			var e float64
+			for _, r := range rows {
+				e += math.Abs(r.Values[m] - r.Ref)
+			}
+			if e < err {
+				closest, err = m, e
+			}
+		}
+		s += fmt.Sprintf(" Closest to the simulated truth: %s (Σ|share − true share| = %s).", models[closest], strconv.FormatFloat(err, 'f', 3, 64))
+	}
+	return s
 }
 
 func flowChart(a Answers) Chart {
-	c := Chart{ID: "action-flow", Heading: "Action flow inside sessions", Wide: true,
-		Lead: fmt.Sprintf("The %d most frequent whole-session paths (repeated actions collapsed) from session start to end; widths are sessions.", MainPaths)}
+	c := Chart{ID: "action-flow", Heading: "Where sessions go next", Wide: true,
+		Lead: "For the session's start and each action, the share of next steps going to each action or ending the session (" +
+			event.StateExit + "), over every step of the window's sessions."}
 	if a.FlowErr != nil {
 		c.Err = errText(a.FlowErr)
 		return c
 	}
-	d := FlowFrom(a.Paths, a.Actions)
-	c.SVG = template.HTML(Flow(d, Frame{ID: c.ID, Title: "Main action paths in sessions",
-		Desc: "Layered flow from session start through each action to the end of the session; band widths are proportional to sessions."}))
+	var steps []string
+	for _, s := range a.Funnel.Steps {
+		steps = append(steps, s.Step)
+	}
+	rows, cols := NextStepsFrom(a.Actions, steps)
+	c.SVG = template.HTML(NextSteps(rows, cols, event.StateExit, Frame{ID: c.ID, Title: "Next step shares in sessions",
+		Desc: "Table of bars: one row per state (" + event.StateEntry + " and each action), one column per next state; each bar is the row's share of steps going there."}))
 	c.Summary = flowSummary(a.Paths)
-	c.Table = Table{Caption: "Main paths", Head: []string{"path", "sessions", "share of sessions", "conversion rate"}}
-	for _, p := range a.Paths.Paths {
-		c.Table.Rows = append(c.Table.Rows, []string{p.Path, Count.format(float64(p.Count)), Percent.format(p.Share), Percent.format(p.ConversionRate)})
+	c.Table = Table{Caption: "Next steps (share of the row's steps, count)", Head: append([]string{"from \\ next", "steps out"}, cols...)}
+	for _, r := range rows {
+		row := []string{r.From, Count.format(float64(r.Total))}
+		for _, cell := range r.Cells {
+			if cell.Has {
+				row = append(row, Percent.format(cell.Share)+" ("+Count.format(float64(cell.Count))+")")
+			} else {
+				row = append(row, "–")
+			}
+		}
+		c.Table.Rows = append(c.Table.Rows, row)
 	}
 	return c
 }
@@ -399,10 +448,10 @@ func flowSummary(a query.PathsAnswer) string {
 	}
 	top := a.Paths[0]
 	s := fmt.Sprintf("The most common session is %q: %s sessions (%s of %s), %s of them converting.",
-		top.Path, Count.format(float64(top.Count)), Percent.format(top.Share), Count.format(float64(a.Total)), Percent.format(top.ConversionRate))
+		top.Key(), Count.format(float64(top.Count)), Percent.format(top.Share), Count.format(float64(a.Total)), Percent.format(top.ConversionRate))
 	for _, p := range a.Paths {
 		if p.Conversions > 0 {
-			s += fmt.Sprintf(" The most common converting session is %q (%s sessions).", p.Path, Count.format(float64(p.Count)))
+			s += fmt.Sprintf(" The most common converting session is %q (%s sessions).", p.Key(), Count.format(float64(p.Count)))
 			break
 		}
 	}
@@ -424,7 +473,9 @@ func funnelChart(a Answers) Chart {
 	for i, s := range a.Funnel.Steps {
 		left := "–"
 		if i < len(a.Funnel.Steps)-1 {
-			left = Percent.format(s.Abandonment)
+			if s.Abandonment != nil {
+				left = Percent.format(*s.Abandonment)
+			}
 		}
 		c.Table.Rows = append(c.Table.Rows, []string{s.Step, Count.format(float64(s.Sessions)), left})
 	}
@@ -437,17 +488,17 @@ func funnelSummary(a query.FunnelAnswer) string {
 	}
 	worst := 0
 	for i := range a.Steps[:len(a.Steps)-1] {
-		if a.Steps[i].Abandonment > a.Steps[worst].Abandonment {
+		if orZero(a.Steps[i].Abandonment) > orZero(a.Steps[worst].Abandonment) {
 			worst = i
 		}
 	}
 	s := fmt.Sprintf("%s sessions reached %s; %s of them went all the way to %s.", Count.format(float64(a.Steps[0].Sessions)),
-		a.Steps[0].Step, Percent.format(a.OverallConversion), a.Steps[len(a.Steps)-1].Step)
+		a.Steps[0].Step, Percent.format(orZero(a.OverallConversion)), a.Steps[len(a.Steps)-1].Step)
 	if len(a.Steps) > 1 {
-		s += fmt.Sprintf(" The biggest loss is after %s: %s left before %s.", a.Steps[worst].Step, Percent.format(a.Steps[worst].Abandonment), a.Steps[worst+1].Step)
+		s += fmt.Sprintf(" The biggest loss is after %s: %s left before %s.", a.Steps[worst].Step, Percent.format(orZero(a.Steps[worst].Abandonment)), a.Steps[worst+1].Step)
 	}
-	if a.BasketSessions > 0 {
-		s += fmt.Sprintf(" Basket abandonment: %s of %s basket sessions.", Percent.format(a.BasketAbandonment), Count.format(float64(a.BasketSessions)))
+	if a.BasketAbandonment != nil {
+		s += fmt.Sprintf(" Basket abandonment: %s of %s basket sessions.", Percent.format(*a.BasketAbandonment), Count.format(float64(a.BasketSessions)))
 	}
 	return s
 }

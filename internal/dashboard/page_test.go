@@ -2,14 +2,12 @@ package dashboard
 
 import (
 	"errors"
-
+	"math"
 	"regexp"
 	"strings"
 	"testing"
 	"time"
 
-	"github.com/touchledger/touchledger/internal/event"
-	"github.com/touchledger/touchledger/internal/pathstats"
 	"github.com/touchledger/touchledger/internal/query"
 )
 
@@ -57,16 +55,16 @@ func fixedAnswers() Answers {
 		{From: "basket_add", To: "@exit", Count: 70, Probability: 1},
 	}}
 	a.Paths = query.PathsAnswer{Level: "action", Total: 100, Paths: []query.PathStat{
-		{Path: "product_view", Count: 60, Share: 0.6},
-		{Path: "product_view" + pathstats.PathSeparator + "basket_add", Count: 30, Share: 0.3, Conversions: 3, ConversionRate: 0.1},
-		{Path: "basket_add", Count: 10, Share: 0.1},
+		{Path: []string{"product_view"}, Count: 60, PathCount: 60, Share: 0.6},
+		{Path: []string{"product_view", "basket_add"}, Count: 30, PathCount: 30, Share: 0.3, Conversions: 3, ConversionRate: 0.1},
+		{Path: []string{"basket_add"}, Count: 10, PathCount: 10, Share: 0.1},
 	}}
 	a.Funnel = query.FunnelAnswer{Sessions: 100, Coverage: query.Coverage{From: time.Date(2026, 9, 4, 18, 0, 0, 0, time.UTC), To: time.Date(2026, 10, 3, 19, 0, 0, 0, time.UTC)}, Steps: []query.FunnelStep{
-		{Step: "product_view", Sessions: 100, Abandonment: 0.6},
-		{Step: "basket_add", Sessions: 40, Abandonment: 0.75},
-		{Step: "checkout", Sessions: 10, Abandonment: 0.3},
+		{Step: "product_view", Sessions: 100, Abandonment: ptr(0.6)},
+		{Step: "basket_add", Sessions: 40, Abandonment: ptr(0.75)},
+		{Step: "checkout", Sessions: 10, Abandonment: ptr(0.3)},
 		{Step: "order", Sessions: 7},
-	}, BasketSessions: 40, BasketAbandonment: 33.0 / 40, OverallConversion: 0.07}
+	}, BasketSessions: 40, BasketAbandonment: ptr(33.0 / 40), OverallConversion: ptr(0.07)}
 	a.Alerts = query.AlertsAnswer{Name: "checkout_abandonment", Interval: (15 * time.Minute).String()}
 	t0 := time.Date(2026, 10, 3, 12, 0, 0, 0, time.UTC)
 	for i, r := range []float64{0, 0.3, 0.25, 0.35, 0.8, 0.9, 0.3, 0.2, 0.3} {
@@ -86,9 +84,9 @@ var fixedSelection = Selection{Model: "linear", Last: 30 * 24 * time.Hour, Days:
 
 // checkPage checks that every number a chart of the page carries is the
 // query answer's number: the line chart's points are the shift answer's
-// credited conversions, each bar a model's share, each heatmap cell a
-// transition's probability and count, each flow link the sum of the main
-// paths through it, each funnel bar a step, and the control chart's lines
+// credited conversions, each mark a model's share, each heatmap cell a
+// transition's probability and count, each next-step cell an action
+// transition's probability and count, each funnel bar a step, and the control chart's lines
 // and bands the alert answer's points and alerts. It needs at most
 // len(Palette) channels (no folding).
 func checkPage(t *testing.T, page []byte, a Answers) {
@@ -124,8 +122,8 @@ func checkPage(t *testing.T, page []byte, a Answers) {
 
 	// All models.
 	got = map[[2]string]float64{}
-	for _, n := range charts["credit-models"].all(withAttr("data-value")) {
-		got[[2]string{n.attr["data-group"], n.attr["data-series"]}] = float(t, n.attr["data-value"])
+	for _, n := range charts["credit-models"].all(func(n *xnode) bool { return n.attr["class"] == "mark" }) {
+		got[[2]string{n.attr["data-model"], n.attr["data-row"]}] = float(t, n.attr["data-value"])
 	}
 	channels := map[string]bool{}
 	for _, m := range a.Credit {
@@ -143,7 +141,7 @@ func checkPage(t *testing.T, page []byte, a Answers) {
 		if m.Err != nil {
 			for k := range got {
 				if k[0] == m.Model {
-					t.Errorf("credit-models: model %s failed but has bars", m.Model)
+					t.Errorf("credit-models: model %s failed but has marks", m.Model)
 				}
 			}
 			continue
@@ -152,15 +150,16 @@ func checkPage(t *testing.T, page []byte, a Answers) {
 		for _, c := range m.Answer.Channels {
 			share[c.Channel] = c.Share
 		}
+		label := query.ModelLabel(m.Answer.Model, m.Answer.Order) // "markov (order 1)"
 		for ch := range channels {
 			want++
-			if v, ok := got[[2]string{m.Model, ch}]; !ok || v != share[ch] {
+			if v, ok := got[[2]string{label, ch}]; !ok || v != share[ch] {
 				t.Errorf("credit-models %s/%s = %v (drawn %v), want %v", m.Model, ch, v, ok, share[ch])
 			}
 		}
 	}
 	if len(got) != want {
-		t.Errorf("credit-models: %d bars, want %d", len(got), want)
+		t.Errorf("credit-models: %d marks, want %d", len(got), want)
 	}
 
 	// Channel transitions.
@@ -186,22 +185,24 @@ func checkPage(t *testing.T, page []byte, a Answers) {
 		}
 	}
 
-	// Action flow: links are sums of the main paths.
-	links := map[string]int64{}
-	for _, p := range a.Paths.Paths {
-		states := append(append([]string{event.StateEntry}, strings.Split(p.Path, pathstats.PathSeparator)...), event.StateExit)
-		for i := 1; i < len(states); i++ {
-			links[exactInt(int64(i-1))+"|"+states[i-1]+"|"+states[i]] += p.Count
+	// Where sessions go next: one cell per action transition, its share the
+	// answer's row probability and its count the answer's count.
+	next := charts["action-flow"].all(func(n *xnode) bool { return n.attr["class"] == "cell" })
+	if len(next) != len(a.Actions.Transitions) {
+		t.Errorf("action-flow: %d cells, want %d", len(next), len(a.Actions.Transitions))
+	}
+	nextPair := map[[2]string]*xnode{}
+	for _, n := range next {
+		nextPair[[2]string{n.attr["data-row"], n.attr["data-col"]}] = n
+	}
+	for _, tr := range a.Actions.Transitions {
+		n := nextPair[[2]string{tr.From, tr.To}]
+		if n == nil {
+			t.Errorf("action-flow: no cell %s → %s", tr.From, tr.To)
+			continue
 		}
-	}
-	drawn := charts["action-flow"].all(func(n *xnode) bool { return n.attr["class"] == "link" })
-	if len(drawn) != len(links) {
-		t.Errorf("action-flow: %d links, want %d", len(drawn), len(links))
-	}
-	for _, n := range drawn {
-		k := n.attr["data-step"] + "|" + n.attr["data-from"] + "|" + n.attr["data-to"]
-		if v := float(t, n.attr["data-value"]); v != float64(links[k]) {
-			t.Errorf("action-flow link %s = %v, want %d", k, v, links[k])
+		if v := float(t, n.attr["data-value"]); math.Abs(v-tr.Probability) > 1e-15 || n.attr["data-count"] != exactInt(tr.Count) {
+			t.Errorf("action-flow %s → %s = %v (%s), want %v (%d)", tr.From, tr.To, v, n.attr["data-count"], tr.Probability, tr.Count)
 		}
 	}
 
@@ -215,7 +216,7 @@ func checkPage(t *testing.T, page []byte, a Answers) {
 			break
 		}
 		s := a.Funnel.Steps[i]
-		if n.attr["data-step"] != s.Step || n.attr["data-value"] != exactInt(s.Sessions) || float(t, n.attr["data-abandonment"]) != s.Abandonment {
+		if n.attr["data-step"] != s.Step || n.attr["data-value"] != exactInt(s.Sessions) || float(t, n.attr["data-abandonment"]) != orZero(s.Abandonment) {
 			t.Errorf("funnel step %d = %v, want %+v", i, n.attr, s)
 		}
 	}
@@ -439,4 +440,52 @@ func closedText(t time.Time) string {
 		return ""
 	}
 	return query.FormatTime(t)
+}
+
+func ptr(x float64) *float64 { return &x }
+
+// TestModelDotsWithTruth: with a truth file the model comparison uses the
+// scorecard's shares over the simulated channels and draws the true share
+// as a ring. Hand-computed from fixedAnswers' credit (the hostile channel
+// and search_ads are the simulated ones, true effects 6 and 4 of 10):
+// last-touch 0.5 and 0.3 renormalise to 0.625 and 0.375 (error
+// |0.625−0.6| + |0.375−0.4| = 0.05), linear 1/3 and 1/2 to 0.4 and 0.6
+// (error 0.4), shapley 1.1 and −0.1 stay (sum 1; error 1.0). Direct has no
+// row.
+func TestModelDotsWithTruth(t *testing.T) {
+	a := fixedAnswers()
+	evil := hostile[0]
+	a.Truth = &query.Truth{IncrementalTotal: 10, Channels: map[string]float64{evil: 6, "search_ads": 4}}
+	models, rows := ModelDots(a.Credit, NewChannels(creditTotals(a.Shift, a.Credit)), a.Truth)
+	if strings.Join(models, ",") != "last-touch,linear,shapley" {
+		t.Fatalf("models %q", models)
+	}
+	want := map[string][]float64{evil: {0.625, 0.4, 1.1, 0.6}, "search_ads": {0.375, 0.6, -0.1, 0.4}}
+	if len(rows) != 2 {
+		t.Fatalf("rows %+v, want the two simulated channels", rows)
+	}
+	for _, r := range rows {
+		w := want[r.Name]
+		if w == nil || !r.HasRef || math.Abs(r.Ref-w[3]) > 1e-12 {
+			t.Errorf("row %+v, want ring at %v", r, w)
+			continue
+		}
+		for m := range models {
+			if math.Abs(r.Values[m]-w[m]) > 1e-12 {
+				t.Errorf("%s %s = %v, want %v", r.Name, models[m], r.Values[m], w[m])
+			}
+		}
+	}
+	page, err := Render(Build(a, Selection{Model: "linear", Last: 30 * 24 * time.Hour, Days: 14}, []string{"linear", "last-touch", "shapley", "markov"}, "t"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	charts := pageCharts(t, page)
+	rings := charts["credit-models"].all(func(n *xnode) bool { return n.attr["class"] == "ref" })
+	if len(rings) != 2 {
+		t.Errorf("%d rings, want 2", len(rings))
+	}
+	if want := "Closest to the simulated truth: last-touch (Σ|share − true share| = 0.050)."; !strings.Contains(string(page), want) {
+		t.Errorf("page lacks %q", want)
+	}
 }

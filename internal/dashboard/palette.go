@@ -30,8 +30,11 @@ const (
 	colorGrid       = "#e4e4e4"
 	colorAxis       = "#7a7a7a"
 	colorEmpty      = "#f4f4f4"
-	colorOther      = "#9a9a9a" // folded channels ("other") and flow ends
-	colorStart      = "#4d4d4d"
+	colorOther      = "#9a9a9a" // folded channels ("other")
+	colorBand       = "#f6f7f9" // every other row of the dot plot
+	colorSpread     = "#b8bec7" // dot plot: smallest to largest model value
+	colorNext       = "#0072B2" // next-step table: share going on to an action
+	colorExit       = "#D55E00" // next-step table: share ending the session
 	colorRate       = "#56B4E9" // abandonment rate per interval
 	colorStatistic  = "#0072B2" // EWMA statistic
 	colorLimit      = "#D55E00" // control limit

@@ -57,6 +57,26 @@ func sharedWorld() demoWorld {
 	return demoWorld{Visitors: 56000, Days: 14}
 }
 
+// shopConfig is the demo shop's configuration for the world.
+func (w demoWorld) shopConfig() shop.Config {
+	sc := shop.DefaultConfig()
+	sc.Visitors = w.Visitors
+	sc.Days = w.Days
+	sc.ShiftDay = w.Days / 2
+	sc.IncidentDay = w.Days - 3
+	return sc
+}
+
+// truth is the world's true incremental conversions per channel, as
+// demo --truth writes them (shop.TrueIncremental).
+func (w demoWorld) truth() (*query.Truth, error) {
+	per, total, err := shop.TrueIncremental(w.shopConfig())
+	if err != nil {
+		return nil, err
+	}
+	return &query.Truth{IncrementalTotal: total, Channels: per}, nil
+}
+
 // sharedDemo returns a function opening a fresh querier on the shared demo
 // store, replaying it on first use.
 func sharedDemo(t testing.TB) func() (*query.Querier, error) {
@@ -91,11 +111,7 @@ func TestMain(m *testing.M) {
 // dir and returns the open store and a function opening a fresh querier on
 // it.
 func replayDemo(dir string, w demoWorld) (*state.Store, func() (*query.Querier, error), error) {
-	sc := shop.DefaultConfig()
-	sc.Visitors = w.Visitors
-	sc.Days = w.Days
-	sc.ShiftDay = w.Days / 2
-	sc.IncidentDay = w.Days - 3
+	sc := w.shopConfig()
 	var events bytes.Buffer
 	if _, err := shop.Generate(&events, sc); err != nil {
 		return nil, nil, err

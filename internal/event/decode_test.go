@@ -8,7 +8,7 @@ import (
 	"unicode"
 )
 
-// The expected values below follow the event contract in DESIGN.md ("Events")
+// The expected values below follow the event contract in doc.go
 // and the limits of issue 2 (payload ≤ 64 KiB, id ≤ 128, user ≤ 256,
 // channel/campaign/action ≤ 128 bytes). Times are checked against the
 // standard library's RFC 3339 reading; values against ValueScale = 10^6.

@@ -6,7 +6,7 @@
 // Decoder.Decode takes one payload: a single JSON object (one bus message, or
 // one line of a replay file). It returns an Event or a *RejectError carrying a
 // Reason code; it never panics and returns no other error type. The event
-// contract is in DESIGN.md ("Events"):
+// contract (also in the README):
 //
 //	field        type                 notes
 //	id           string               required, ≤ Limits.MaxID bytes (128)

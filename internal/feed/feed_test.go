@@ -194,7 +194,7 @@ func spikeSessions(base time.Time, abandons, slots []int) []string {
 }
 
 // TestAlertFeed (issue 4 item 9): abandonment per 5-minute interval follows
-// the spike example of check-values.md §5 ([computed]; EWMA after Roberts
+// the spike example of docs/references.md §5 ([computed]; EWMA after Roberts
 // 1959 and NIST/SEMATECH §6.3.2.4): baseline 10 %, then 40, 44, 36, 48, 56,
 // 64 abandons of 400, then back to 40. With alert.target 0.10, λ = 0.2 and
 // L = 3 the alert opens at the sixth interval of the spike (as
@@ -241,7 +241,7 @@ func TestAlertFeed(t *testing.T) {
 	}
 	// §5: UCL_6 = 0.114475 when the chart starts at the spike; two quiet
 	// intervals before it put the limit between that and the asymptotic
-	// 0.115 ([computed] in check-values.md §5).
+	// 0.115 ([computed] in docs/references.md §5).
 	if opened.Limit < 0.114475-1e-6 || opened.Limit > 0.115+1e-9 {
 		t.Errorf("limit %v, want within [0.114475, 0.115]", opened.Limit)
 	}

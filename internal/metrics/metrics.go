@@ -374,10 +374,10 @@ func (m *Metrics) computeWindow(st pipeline.Status) (out []prometheus.Metric, co
 	} else {
 		f := a.Funnel
 		for i, s := range f.Steps {
-			if i == len(f.Steps)-1 || s.Sessions == 0 {
+			if i == len(f.Steps)-1 || s.Abandonment == nil {
 				continue
 			}
-			out = append(out, constMetric(m.abandonment, prometheus.GaugeValue, s.Abandonment, s.Step))
+			out = append(out, constMetric(m.abandonment, prometheus.GaugeValue, *s.Abandonment, s.Step))
 		}
 	}
 

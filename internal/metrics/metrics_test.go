@@ -358,13 +358,20 @@ func TestAbandonmentAndAlertGauges(t *testing.T) {
 	for i, s := range fa.Steps {
 		_, exported := g["touchledger_abandonment_ratio"]["step="+s.Step]
 		if wantOut := i == len(fa.Steps)-1 || s.Sessions == 0; wantOut {
+			if s.Abandonment != nil {
+				t.Errorf("step %s: abandonment %v, want nil (unknown) for the last step or a step with no sessions", s.Step, *s.Abandonment)
+			}
 			if exported {
 				t.Errorf("abandonment_ratio{step=%s} exported for a step with no sessions or the last step", s.Step)
 			}
 			continue
 		}
-		if got := g.value(t, "touchledger_abandonment_ratio", "step="+s.Step); got != s.Abandonment {
-			t.Errorf("abandonment_ratio{step=%s} = %v, want %v", s.Step, got, s.Abandonment)
+		if s.Abandonment == nil {
+			t.Errorf("step %s with %d sessions: abandonment nil", s.Step, s.Sessions)
+			continue
+		}
+		if got := g.value(t, "touchledger_abandonment_ratio", "step="+s.Step); got != *s.Abandonment {
+			t.Errorf("abandonment_ratio{step=%s} = %v, want %v", s.Step, got, *s.Abandonment)
 		}
 	}
 	if len(g["touchledger_abandonment_ratio"]) < 2 {

@@ -75,7 +75,7 @@ func TestFunnelDepthMatchesSubsequenceSearch(t *testing.T) {
 }
 
 func TestFunnelExample(t *testing.T) {
-	// check-values.md §5 funnel example [computed]: counts 1000 → 300 → 150 →
+	// docs/references.md §5 funnel example [computed]: counts 1000 → 300 → 150 →
 	// 120 → 90 give step abandonment 7/10, 1/2, 1/5, 1/4, overall conversion
 	// 9/100 and basket abandonment 1 − 90/300 = 7/10. The sessions are built so
 	// that 700 stop after step 1, 150 after 2, 30 after 3, 30 after 4 and 90

@@ -21,58 +21,37 @@ func CollapseRepeats(dst, in []string) []string {
 	return dst
 }
 
-// PathKey returns the display and counting key of a path: the path with
-// consecutive repeats collapsed, joined with PathSeparator. When maxLen > 0
-// and the collapsed path has more than maxLen elements, the key keeps its
-// first maxLen−1 elements, then PathEllipsis, then its last element, so it
-// shows maxLen elements of the path (the ellipsis is not counted):
+// PathSteps returns the displayed steps of a path: the path with
+// consecutive repeats collapsed and, when maxLen > 0 and the collapsed path
+// has more than maxLen steps, cut to its first maxLen−1 steps, then
+// PathEllipsis, then its last step, so it shows maxLen steps of the path
+// (the ellipsis is not counted):
+//
+//	PathSteps([a a b c d e], 3) = [a b … e]
+//	PathSteps([a b c d], 1)     = [… d]
+//	PathSteps([a b c], 3)       = [a b c]
+//
+// maxLen <= 0 means no limit; an empty path gives nil. Paths that differ
+// only in their elided middle share their steps.
+func PathSteps(path []string, maxLen int) []string {
+	collapsed := CollapseRepeats(nil, path)
+	if maxLen <= 0 || len(collapsed) <= maxLen {
+		return collapsed
+	}
+	last := collapsed[len(collapsed)-1]
+	return append(collapsed[:maxLen-1], PathEllipsis, last)
+}
+
+// PathKey returns the display and counting key of a path: PathSteps joined
+// with PathSeparator:
 //
 //	PathKey([a a b c d e], 3) = "a → b → … → e"
 //	PathKey([a b c d], 1)     = "… → d"
 //	PathKey([a b c], 3)       = "a → b → c"
 //
-// maxLen <= 0 means no limit; an empty path gives "". Paths that differ only
-// in their elided middle share a key, and an element containing
-// PathSeparator makes keys ambiguous; the key is for display and counting,
-// not for recovering the path.
+// An empty path gives "". An element containing PathSeparator makes keys
+// ambiguous; the key is for display and counting, not for recovering the
+// path (answers carry PathSteps as a list for that).
 func PathKey(path []string, maxLen int) string {
-	n := 0 // collapsed length
-	for i, s := range path {
-		if i == 0 || s != path[i-1] {
-			n++
-		}
-	}
-	if n == 0 {
-		return ""
-	}
-	var b strings.Builder
-	written := 0
-	write := func(s string) {
-		if written > 0 {
-			b.WriteString(PathSeparator)
-		}
-		b.WriteString(s)
-		written++
-	}
-	if maxLen <= 0 || n <= maxLen {
-		for i, s := range path {
-			if i == 0 || s != path[i-1] {
-				write(s)
-			}
-		}
-		return b.String()
-	}
-	kept := 0
-	for i, s := range path {
-		if kept == maxLen-1 {
-			break
-		}
-		if i == 0 || s != path[i-1] {
-			write(s)
-			kept++
-		}
-	}
-	write(PathEllipsis)
-	write(path[len(path)-1])
-	return b.String()
+	return strings.Join(PathSteps(path, maxLen), PathSeparator)
 }

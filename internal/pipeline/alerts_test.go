@@ -13,7 +13,7 @@ import (
 )
 
 // TestAbandonmentSpikeOpensAlert replays sessions whose basket abandonment per
-// 5-minute interval follows the spike example of check-values.md §5
+// 5-minute interval follows the spike example of docs/references.md §5
 // ([computed]; EWMA after Roberts 1959 and NIST/SEMATECH §6.3.2.4, binomial
 // limits after NIST §6.3.3.2): 400 basket sessions per interval, baseline
 // 10 %, then 40, 44, 36, 48, 56, 64 abandons (10 % → 16 %). With λ = 0.2 and

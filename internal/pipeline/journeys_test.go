@@ -197,8 +197,11 @@ func TestReplayPathStatisticsMatchIndependentComputation(t *testing.T) {
 			t.Errorf("funnel step %s = %d, want %d", s.Step, s.Sessions, want.funnel[s.Step])
 		}
 	}
-	if f.BasketSessions != want.basket || math.Abs(f.BasketAbandonment-float64(want.basket-want.basketC)/float64(want.basket)) > 1e-12 {
-		t.Errorf("basket = %d (%.4f), want %d of which %d converted", f.BasketSessions, f.BasketAbandonment, want.basket, want.basketC)
+	if f.BasketSessions != want.basket || f.BasketAbandonment == nil || math.Abs(*f.BasketAbandonment-float64(want.basket-want.basketC)/float64(want.basket)) > 1e-12 {
+		t.Errorf("basket = %d (%v), want %d of which %d converted", f.BasketSessions, f.BasketAbandonment, want.basket, want.basketC)
+	}
+	if last := f.Steps[len(f.Steps)-1]; last.Abandonment != nil {
+		t.Errorf("last funnel step %s: abandonment %v, want nil (no next step)", last.Step, *last.Abandonment)
 	}
 
 	at, err := q.Transitions("action", 0, all)

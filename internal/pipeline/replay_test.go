@@ -119,7 +119,7 @@ func demoInput(t testing.TB, visitors, days int) []byte {
 // every rule-based model against a straightforward batch computation of the
 // rules of issue 2 (items 4–6), written here without the engine's code: sort
 // each user's events, cut journeys, pick eligible touches, weigh them with
-// the formulas of check-values.md §2 (common practice, no published source).
+// the formulas of docs/references.md §2 (common practice, no published source).
 func TestReplayMatchesIndependentComputation(t *testing.T) {
 	input := demoInput(t, 3000, 10)
 	dir := t.TempDir()

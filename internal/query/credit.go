@@ -14,7 +14,8 @@ import (
 // CreditAnswer is the answer of `query credit`. Its JSON form is part of the
 // interface (CLI, HTTP and NATS answers share it).
 type CreditAnswer struct {
-	Model string `json:"model"`
+	Model string `json:"model"`           // the model's id, as the model parameter takes it: linear, markov, ...
+	Order int    `json:"order,omitempty"` // markov only: the chain's order (1 to 4)
 	Coverage
 	By          string          `json:"by"`
 	Conversions int64           `json:"conversions"`
@@ -51,6 +52,15 @@ func ParseBy(s string) (string, error) {
 		return ByCampaign, nil
 	}
 	return "", fmt.Errorf("unknown grouping %q: use channel or campaign", s)
+}
+
+// ModelLabel names a model for people: its id, and for markov its order
+// ("markov (order 2)"). JSON and CSV carry the id and the order apart.
+func ModelLabel(model string, order int) string {
+	if model == ModelMarkov && order > 0 {
+		return fmt.Sprintf("%s (order %d)", model, order)
+	}
+	return model
 }
 
 // FormatTime formats a window edge.

@@ -9,6 +9,8 @@ import (
 	"strings"
 	"text/tabwriter"
 	"time"
+
+	"github.com/touchledger/touchledger/internal/pathstats"
 )
 
 // Format names an output format.
@@ -75,7 +77,7 @@ func WriteCredit(w io.Writer, a CreditAnswer, f Format, chart bool) error {
 		return WriteJSON(w, a)
 	case CSV:
 		cw := csv.NewWriter(w)
-		head := []string{"model", "from", "to", "channel"}
+		head := []string{"model", "order", "from", "to", "channel"}
 		if a.By == ByCampaign {
 			head = append(head, "campaign")
 		}
@@ -84,7 +86,7 @@ func WriteCredit(w io.Writer, a CreditAnswer, f Format, chart bool) error {
 			return err
 		}
 		for _, c := range a.Channels {
-			row := []string{a.Model, FormatTime(a.From), FormatTime(a.To), c.Channel}
+			row := []string{a.Model, orderText(a.Order), FormatTime(a.From), FormatTime(a.To), c.Channel}
 			if a.By == ByCampaign {
 				row = append(row, deref(c.Campaign))
 			}
@@ -97,7 +99,7 @@ func WriteCredit(w io.Writer, a CreditAnswer, f Format, chart bool) error {
 		cw.Flush()
 		return cw.Error()
 	}
-	fmt.Fprintf(w, "credit by %s · model %s · %s", a.By, a.Model, a.Coverage)
+	fmt.Fprintf(w, "credit by %s · model %s · %s", a.By, ModelLabel(a.Model, a.Order), a.Coverage)
 	fmt.Fprintf(w, "\n%d conversions, value %s\n\n", a.Conversions, f2(a.Value))
 	for _, n := range a.Notes {
 		fmt.Fprintf(w, "note: %s\n", n)
@@ -155,6 +157,30 @@ func (c Coverage) String() string {
 	return s
 }
 
+// optPct is an optional share for tables: "-" when unknown (nil).
+func optPct(x *float64) string {
+	if x == nil {
+		return "-"
+	}
+	return pct(*x)
+}
+
+// orderText is a Markov order for CSV: empty for the other models.
+func orderText(order int) string {
+	if order == 0 {
+		return ""
+	}
+	return strconv.Itoa(order)
+}
+
+// floatText is an optional number for CSV: empty when unknown (nil).
+func floatText(x *float64) string {
+	if x == nil {
+		return ""
+	}
+	return strconv.FormatFloat(*x, 'f', -1, 64)
+}
+
 func deref(s *string) string {
 	if s == nil {
 		return ""
@@ -172,15 +198,15 @@ func WriteShift(w io.Writer, a ShiftAnswer, f Format, chart bool) error {
 		return WriteJSON(w, a)
 	case CSV:
 		cw := csv.NewWriter(w)
-		if err := cw.Write([]string{"model", "day", "channel", "conversions", "value", "share", "change", "share_change"}); err != nil {
+		if err := cw.Write([]string{"model", "order", "day", "channel", "conversions", "value", "share", "change", "share_change"}); err != nil {
 			return err
 		}
 		for _, d := range a.Days {
 			for _, c := range d.Channels {
-				if err := cw.Write([]string{a.Model, d.Day, c.Channel,
+				if err := cw.Write([]string{a.Model, orderText(a.Order), d.Day, c.Channel,
 					strconv.FormatFloat(c.Conversions, 'f', -1, 64), strconv.FormatFloat(c.Value, 'f', -1, 64),
-					strconv.FormatFloat(c.Share, 'f', -1, 64), strconv.FormatFloat(c.Change, 'f', -1, 64),
-					strconv.FormatFloat(c.ShareChange, 'f', -1, 64)}); err != nil {
+					strconv.FormatFloat(c.Share, 'f', -1, 64), floatText(c.Change),
+					floatText(c.ShareChange)}); err != nil {
 					return err
 				}
 			}
@@ -188,7 +214,7 @@ func WriteShift(w io.Writer, a ShiftAnswer, f Format, chart bool) error {
 		cw.Flush()
 		return cw.Error()
 	}
-	fmt.Fprintf(w, "credited conversions per day · model %s · change against the day before\n\n", a.Model)
+	fmt.Fprintf(w, "credited conversions per day · model %s · change against the day before\n\n", ModelLabel(a.Model, a.Order))
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
 	head := "DAY\tTOTAL\t"
 	for _, c := range a.Channels {
@@ -198,7 +224,11 @@ func WriteShift(w io.Writer, a ShiftAnswer, f Format, chart bool) error {
 	for _, d := range a.Days {
 		row := d.Day + "\t" + strconv.FormatInt(d.Conversions, 10) + "\t"
 		for _, c := range d.Channels {
-			row += f2(c.Conversions) + " (" + signed(c.Change) + ")\t"
+			if c.Change == nil {
+				row += f2(c.Conversions) + " (-)\t"
+			} else {
+				row += f2(c.Conversions) + " (" + signed(*c.Change) + ")\t"
+			}
 		}
 		fmt.Fprintln(tw, row)
 	}
@@ -306,9 +336,10 @@ func WritePaths(w io.Writer, a PathsAnswer, f Format) error {
 	case JSON:
 		return WriteJSON(w, a)
 	case CSV:
-		rows := [][]string{{"level", "from", "to", "path", "count", "share", "conversions", "conversion_rate"}}
+		rows := [][]string{{"level", "from", "to", "path", "end", "count", "share", "path_count", "conversions", "conversion_rate"}}
 		for _, p := range a.Paths {
-			rows = append(rows, []string{a.Level, FormatTime(a.From), FormatTime(a.To), p.Path, fi(p.Count), ff(p.Share), fi(p.Conversions), ff(p.ConversionRate)})
+			rows = append(rows, []string{a.Level, FormatTime(a.From), FormatTime(a.To), strings.Join(p.Path, pathstats.PathSeparator), p.End,
+				fi(p.Count), ff(p.Share), fi(p.PathCount), fi(p.Conversions), ff(p.ConversionRate)})
 		}
 		return csvOut(w, rows)
 	}
@@ -316,11 +347,15 @@ func WritePaths(w io.Writer, a PathsAnswer, f Format) error {
 	if a.Level == "channel" {
 		what = "journeys (channels, ending in @converted or @lost)"
 	}
-	fmt.Fprintf(w, "most frequent paths of %s · %s · %d in all\n\n", what, a.Coverage, a.Total)
+	fmt.Fprintf(w, "most frequent paths of %s · %s · %d in all\n", what, a.Coverage, a.Total)
+	if a.Level == "channel" {
+		fmt.Fprintln(w, "conversion rate: of all journeys on the path before its end state")
+	}
+	fmt.Fprintln(w)
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
 	fmt.Fprintln(tw, "COUNT\tSHARE\tCONVERSION RATE\tPATH\t")
 	for _, p := range a.Paths {
-		fmt.Fprintf(tw, "%d\t%s\t%s\t%s\t\n", p.Count, pct(p.Share), pct(p.ConversionRate), p.Path)
+		fmt.Fprintf(tw, "%d\t%s\t%s\t%s\t\n", p.Count, pct(p.Share), pct(p.ConversionRate), p.Key())
 	}
 	return tw.Flush()
 }
@@ -336,7 +371,7 @@ func WriteFunnel(w io.Writer, a FunnelAnswer, f Format) error {
 	case CSV:
 		rows := [][]string{{"from", "to", "step", "sessions", "abandonment"}}
 		for _, s := range a.Steps {
-			rows = append(rows, []string{FormatTime(a.From), FormatTime(a.To), s.Step, fi(s.Sessions), ff(s.Abandonment)})
+			rows = append(rows, []string{FormatTime(a.From), FormatTime(a.To), s.Step, fi(s.Sessions), floatText(s.Abandonment)})
 		}
 		return csvOut(w, rows)
 	}
@@ -347,11 +382,8 @@ func WriteFunnel(w io.Writer, a FunnelAnswer, f Format) error {
 	if len(a.Steps) > 0 {
 		first = a.Steps[0].Sessions
 	}
-	for i, s := range a.Steps {
-		drop := pct(s.Abandonment)
-		if i == len(a.Steps)-1 {
-			drop = "-"
-		}
+	for _, s := range a.Steps {
+		drop := optPct(s.Abandonment)
 		frac := 0.0
 		if first > 0 {
 			frac = float64(s.Sessions) / float64(first)
@@ -360,7 +392,7 @@ func WriteFunnel(w io.Writer, a FunnelAnswer, f Format) error {
 	}
 	tw.Flush()
 	_, err := fmt.Fprintf(w, "\nbasket abandonment %s of %d basket sessions · first to last step %s\n",
-		pct(a.BasketAbandonment), a.BasketSessions, pct(a.OverallConversion))
+		optPct(a.BasketAbandonment), a.BasketSessions, optPct(a.OverallConversion))
 	return err
 }
 

@@ -161,7 +161,7 @@ func DataDrivenCredit(model string, order int, plan Plan, p Params, totals, path
 	var journeys []int64
 	switch model {
 	case ModelMarkov:
-		a.Model = fmt.Sprintf("markov (order %d)", order)
+		a.Order = order
 		counts := MarkovCounts(paths, order, p.CollapseRepeats)
 		if len(counts) > 0 {
 			r, err := credit.Markov(counts)
@@ -362,67 +362,102 @@ type PathsAnswer struct {
 	MissingPartitions []int      `json:"missing_partitions,omitempty"` // partitions that did not answer
 }
 
-// PathStat is one path with its count and conversion rate.
+// PathStat is one row of a paths answer: a path (with, for journeys, the
+// state it ended in), how often it occurred, and the conversion rate of the
+// path without its end.
+//
+// For sessions (level action) a row is a whole session path: Count sessions,
+// Conversions of them reached a goal action, PathCount = Count, End empty.
+// For journeys (level channel) a row is a channel path and its end state
+// (@converted or @lost): Count journeys took that path and ended so, while
+// PathCount journeys took the path whatever their end and Conversions of them
+// converted. So
+//
+//	ConversionRate = Conversions / PathCount
+//
+// is the same on the @converted and the @lost row of one path: the share of
+// journeys sharing the path that converted (a rate over rows that include
+// their end would be 1 or 0 by construction).
 type PathStat struct {
-	Path           string  `json:"path"`
-	Count          int64   `json:"count"`
-	Share          float64 `json:"share"`
-	Conversions    int64   `json:"conversions"`
-	ConversionRate float64 `json:"conversion_rate"`
+	Path           []string `json:"path"`          // steps, repeats collapsed; a cut path holds "…"
+	End            string   `json:"end,omitempty"` // journeys: @converted or @lost; sessions: empty
+	Count          int64    `json:"count"`         // sessions, or journeys with this path and end
+	Share          float64  `json:"share"`         // Count / the answer's Total
+	PathCount      int64    `json:"path_count"`    // sessions or journeys with this path, whatever the end
+	Conversions    int64    `json:"conversions"`   // converted among PathCount
+	ConversionRate float64  `json:"conversion_rate"`
+}
+
+// Key is the path joined with " → ", then the end state if any: the form
+// tables and CSV show.
+func (p PathStat) Key() string {
+	k := strings.Join(p.Path, pathstats.PathSeparator)
+	if p.End != "" {
+		k += pathstats.PathSeparator + p.End
+	}
+	return k
 }
 
 // Paths lists the top most frequent paths (exact counts). Action paths are
-// whole sessions with repeats collapsed; channel paths are journeys ending in
-// conversion or null (for a channel path the conversion rate is 1 or 0 by
-// construction). Paths longer than maxLen are shown cut with an ellipsis.
+// whole sessions with repeats collapsed; channel paths are journeys, one row
+// per path and end state (see PathStat for the conversion rate). Paths
+// longer than maxLen are shown cut with an ellipsis.
 func Paths(level string, top, maxLen int, plan Plan, t tally.Table) PathsAnswer {
 	a := PathsAnswer{Level: level, Coverage: plan.Coverage}
-	type agg struct{ n, conv int64 }
-	keys := map[string]*agg{}
-	add := func(k string, n, c int64) {
-		g := keys[k]
-		if g == nil {
-			g = &agg{}
-			keys[k] = g
-		}
-		g.n += n
-		g.conv += c
+	type agg struct {
+		steps   []string
+		n, conv int64
 	}
+	keys := map[string]*agg{}
 	for dims, v := range t {
 		if v[0] == 0 || dims == "" {
 			continue
 		}
-		key := pathstats.PathKey(tally.Split(dims), maxLen)
-		if level == "channel" {
-			if v[1] != 0 {
-				add(key+pathstats.PathSeparator+event.StateConverted, v[1], v[1])
-			}
-			if n := v[0] - v[1]; n != 0 {
-				add(key+pathstats.PathSeparator+event.StateLost, n, 0)
-			}
-		} else {
-			add(key, v[0], v[1])
+		steps := pathstats.PathSteps(tally.Split(dims), maxLen)
+		key := strings.Join(steps, pathstats.PathSeparator)
+		g := keys[key]
+		if g == nil {
+			g = &agg{steps: steps}
+			keys[key] = g
 		}
+		g.n += v[0]
+		g.conv += v[1]
 		a.Total += v[0]
 	}
 	var rows []PathStat
-	for k, g := range keys {
-		if g.n != 0 {
-			rows = append(rows, PathStat{Path: k, Count: g.n, Conversions: g.conv})
+	for _, g := range keys {
+		if g.n == 0 {
+			continue
+		}
+		base := PathStat{Path: g.steps, PathCount: g.n, Conversions: g.conv}
+		if level != "channel" {
+			base.Count = g.n
+			rows = append(rows, base)
+			continue
+		}
+		if g.conv != 0 {
+			r := base
+			r.End, r.Count = event.StateConverted, g.conv
+			rows = append(rows, r)
+		}
+		if lost := g.n - g.conv; lost != 0 {
+			r := base
+			r.End, r.Count = event.StateLost, lost
+			rows = append(rows, r)
 		}
 	}
 	sort.Slice(rows, func(i, j int) bool {
 		if rows[i].Count != rows[j].Count {
 			return rows[i].Count > rows[j].Count
 		}
-		return rows[i].Path < rows[j].Path
+		return rows[i].Key() < rows[j].Key()
 	})
 	if top > 0 && len(rows) > top {
 		rows = rows[:top]
 	}
 	for i := range rows {
 		rows[i].Share = float64(rows[i].Count) / float64(a.Total)
-		rows[i].ConversionRate = float64(rows[i].Conversions) / float64(rows[i].Count)
+		rows[i].ConversionRate = float64(rows[i].Conversions) / float64(rows[i].PathCount)
 	}
 	a.Paths = rows
 	if a.Paths == nil {
@@ -437,18 +472,23 @@ type FunnelAnswer struct {
 	Sessions          int64        `json:"sessions"`
 	Steps             []FunnelStep `json:"steps"`
 	BasketSessions    int64        `json:"basket_sessions"`
-	BasketAbandonment float64      `json:"basket_abandonment"`
-	OverallConversion float64      `json:"overall_conversion"`           // last step / first step
+	BasketAbandonment *float64     `json:"basket_abandonment"`           // nil (null) without basket sessions
+	OverallConversion *float64     `json:"overall_conversion"`           // last step / first step; nil when no session reached the first
 	MissingPartitions []int        `json:"missing_partitions,omitempty"` // partitions that did not answer
 }
 
 // FunnelStep is one step of an in-order funnel: sessions that reached it in
-// order, and the share of those that did not reach the next step.
+// order, and the share of those that did not reach the next step. The last
+// step has no next step and a step no session reached has no share, so
+// their Abandonment is nil (JSON null): unknown, not 0.
 type FunnelStep struct {
-	Step        string  `json:"step"`
-	Sessions    int64   `json:"sessions"`
-	Abandonment float64 `json:"abandonment"` // 1 − next/this; 0 for the last step
+	Step        string   `json:"step"`
+	Sessions    int64    `json:"sessions"`
+	Abandonment *float64 `json:"abandonment"` // 1 − next/this; nil for the last step and when Sessions is 0
 }
+
+// ratio returns &x, for optional numbers.
+func ratio(x float64) *float64 { return &x }
 
 // Funnel builds the in-order funnel over sessions whose last event lies in the
 // window: reached(i) = sessions with depth > i; abandonment(i) = 1 −
@@ -471,15 +511,17 @@ func Funnel(steps []string, plan Plan, t tally.Table) FunnelAnswer {
 	abandon := pathstats.StepAbandonment(reached)
 	for i, s := range steps {
 		st := FunnelStep{Step: s, Sessions: reached[i]}
-		if i < len(abandon) {
-			st.Abandonment = abandon[i]
+		if i < len(abandon) && reached[i] > 0 {
+			st.Abandonment = ratio(abandon[i])
 		}
 		a.Steps = append(a.Steps, st)
 	}
 	a.BasketSessions = basket
-	a.BasketAbandonment = pathstats.Abandonment(basket, basketConv)
+	if basket > 0 {
+		a.BasketAbandonment = ratio(pathstats.Abandonment(basket, basketConv))
+	}
 	if len(steps) > 0 && reached[0] > 0 {
-		a.OverallConversion = float64(reached[len(steps)-1]) / float64(reached[0])
+		a.OverallConversion = ratio(float64(reached[len(steps)-1]) / float64(reached[0]))
 	}
 	return a
 }

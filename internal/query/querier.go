@@ -520,7 +520,8 @@ func joinReason(a, b string) string {
 
 // ShiftAnswer is the answer of a shift question: credit per channel per day.
 type ShiftAnswer struct {
-	Model string `json:"model"`
+	Model string `json:"model"`           // the model's id
+	Order int    `json:"order,omitempty"` // markov only
 	Coverage
 	Days              []ShiftDay `json:"days"`
 	Channels          []string   `json:"channels"`
@@ -536,14 +537,15 @@ type ShiftDay struct {
 }
 
 // ShiftCell is one channel on one day. Change and ShareChange are against the
-// previous day shown (0 on the first day).
+// previous day shown; on the first day there is none to compare with, so they
+// are nil (JSON null), not 0.
 type ShiftCell struct {
-	Channel     string  `json:"channel"`
-	Conversions float64 `json:"conversions"`
-	Value       float64 `json:"value"`
-	Share       float64 `json:"share"`
-	Change      float64 `json:"change"`       // conversions − previous day's
-	ShareChange float64 `json:"share_change"` // share − previous day's share
+	Channel     string   `json:"channel"`
+	Conversions float64  `json:"conversions"`
+	Value       float64  `json:"value"`
+	Share       float64  `json:"share"`
+	Change      *float64 `json:"change"`       // conversions − previous day's; nil on the first day
+	ShareChange *float64 `json:"share_change"` // share − previous day's share; nil on the first day
 }
 
 // shift answers a shift question: the last `days` UTC days up to and
@@ -561,7 +563,7 @@ func (q *Querier) shift(model string, order int, days int) (ShiftAnswer, error) 
 		if err != nil {
 			return ShiftAnswer{}, err
 		}
-		a.Model = c.Model
+		a.Model, a.Order = c.Model, c.Order
 		a.Days = append(a.Days, ShiftDay{Day: day.Format("2006-01-02"), Conversions: c.Conversions, Value: c.Value})
 		cur := map[string]ShiftCell{}
 		for _, ch := range c.Channels {
@@ -580,8 +582,8 @@ func (q *Querier) shift(model string, order int, days int) (ShiftAnswer, error) 
 			cell.Channel = name
 			if i > 0 {
 				prev := perDay[i-1][name]
-				cell.Change = cell.Conversions - prev.Conversions
-				cell.ShareChange = cell.Share - prev.Share
+				change, shareChange := cell.Conversions-prev.Conversions, cell.Share-prev.Share
+				cell.Change, cell.ShareChange = &change, &shareChange
 			}
 			a.Days[i].Channels = append(a.Days[i].Channels, cell)
 		}

@@ -49,9 +49,10 @@ type ScorecardAnswer struct {
 
 // ModelScore is one model's shares and its distance from the truth.
 type ModelScore struct {
-	Model string    `json:"model"`
-	Share []float64 `json:"share"` // per channel, over the channels in the truth
-	Error float64   `json:"error"` // Σ |share − true share|: 0 perfect, 2 disjoint, more only with negative shares
+	Model string    `json:"model"`           // the model's id
+	Order int       `json:"order,omitempty"` // markov only
+	Share []float64 `json:"share"`           // per channel, over the channels in the truth
+	Error float64   `json:"error"`           // Σ |share − true share|: 0 perfect, 2 disjoint, more only with negative shares
 }
 
 // Scorecard scores credit answers against the truth. A model's credit is
@@ -85,7 +86,7 @@ func Scorecard(answers []CreditAnswer, truth Truth) ScorecardAnswer {
 				sum += c.Conversions
 			}
 		}
-		s := ModelScore{Model: ans.Model}
+		s := ModelScore{Model: ans.Model, Order: ans.Order}
 		for i, ch := range a.Channels {
 			share := 0.0
 			if sum != 0 {
@@ -109,10 +110,10 @@ func WriteScorecard(w io.Writer, a ScorecardAnswer, f Format) error {
 	case JSON:
 		return WriteJSON(w, a)
 	case CSV:
-		rows := [][]string{{"model", "channel", "share", "true_share", "error"}}
+		rows := [][]string{{"model", "order", "channel", "share", "true_share", "error"}}
 		for _, m := range a.Models {
 			for i, ch := range a.Channels {
-				rows = append(rows, []string{m.Model, ch, ff(m.Share[i]), ff(a.True[i]), ff(m.Error)})
+				rows = append(rows, []string{m.Model, orderText(m.Order), ch, ff(m.Share[i]), ff(a.True[i]), ff(m.Error)})
 			}
 		}
 		return csvOut(w, rows)
@@ -130,7 +131,7 @@ func WriteScorecard(w io.Writer, a ScorecardAnswer, f Format) error {
 	}
 	fmt.Fprintln(tw, row)
 	for _, m := range a.Models {
-		row := m.Model + "\t" + strconv.FormatFloat(m.Error, 'f', 3, 64) + "\t"
+		row := ModelLabel(m.Model, m.Order) + "\t" + strconv.FormatFloat(m.Error, 'f', 3, 64) + "\t"
 		for _, s := range m.Share {
 			row += pct(s) + "\t"
 		}

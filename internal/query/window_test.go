@@ -17,7 +17,7 @@ func ts(s string) time.Time {
 
 // TestPlanWindow: a window is covered by the coarsest buckets that fit, finer
 // ones at the edges, widened where fine buckets have expired (the rule is
-// common practice, no source; check-values.md §7).
+// common practice, no source; docs/references.md §7).
 func TestPlanWindow(t *testing.T) {
 	res := []state.Resolution{
 		{Name: "5m", Step: 5 * time.Minute, Retention: 14 * 24 * time.Hour}, // a non-default finest step on purpose

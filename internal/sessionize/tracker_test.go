@@ -39,7 +39,7 @@ func touch(ts, ch string, view bool) event.Event {
 }
 
 // TestSessionGapBoundary: a gap of exactly the session gap starts a new
-// session (rule "gap >= T"). Check values: check-values.md §1 worked example,
+// session (rule "gap >= T"). Check values: docs/references.md §1 worked example,
 // [computed]: with split if gap >= 30 min the session ids are 1,1,1,2,3,3,3.
 // The 30-minute convention is common practice (it traces to Catledge &
 // Pitkow 1995, whose cut-off was 25.5 minutes).
@@ -131,7 +131,7 @@ func TestLookbackEdges(t *testing.T) {
 }
 
 // TestFiveTouchConversion: 50.00 after touches 28, 21, 14, 7 and 0 days
-// before it (check-values.md §2, [computed]; formulas common practice):
+// before it (docs/references.md §2, [computed]; formulas common practice):
 // linear 10.00 each; time-decay (half-life 7 d) 50/31 × (1, 2, 4, 8, 16);
 // position-based 20, 10/3, 10/3, 10/3, 20.
 func TestFiveTouchConversion(t *testing.T) {
