@@ -187,7 +187,7 @@ func (q *Querier) planOver(idx []int, s Span) (Plan, error) {
 		p.Pieces[i].Res = idx[p.Pieces[i].Res]
 	}
 	if p.Rounded && idx[0] > 0 {
-		p.Rounding += fmt.Sprintf("; a window that needs rounding is rounded alike in every answer, to %s buckets, the finest path statistics are kept at", q.res[idx[0]].Name)
+		p.Rounding += fmt.Sprintf("; %s buckets are the finest every answer holds (path statistics), so every answer covers the same span", q.res[idx[0]].Name)
 	}
 	return p, nil
 }

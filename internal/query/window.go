@@ -3,7 +3,6 @@ package query
 import (
 	"errors"
 	"fmt"
-	"strings"
 	"time"
 
 	"github.com/touchledger/touchledger/internal/config"
@@ -104,27 +103,30 @@ func PlanWindow(res []state.Resolution, from, to, watermark time.Time) (Plan, er
 	p.From, p.To = time.Unix(start, 0).UTC(), time.Unix(end, 0).UTC()
 	p.Rounded = !p.From.Equal(from) || !p.To.Equal(to)
 	if p.Rounded {
-		p.Rounding = roundingReason(res, r0, !p.From.Equal(from), !p.To.Equal(to))
+		p.Rounding = roundingReason(res, r0, p.Pieces[len(p.Pieces)-1].Res, !p.From.Equal(from), !p.To.Equal(to))
 	}
 	return p, nil
 }
 
-// roundingReason says why a plan's edges moved: the start falls on buckets
-// of resolution r0 (coarser than the finest when finer buckets expired
-// there), the end on the finest buckets.
-func roundingReason(res []state.Resolution, r0 int, start, end bool) string {
-	var parts []string
-	if start {
-		why := "start moved back to a bucket edge (" + res[r0].Name + " buckets)"
-		if r0 > 0 {
-			why += fmt.Sprintf(" (retention: %s buckets are kept %s)", res[r0-1].Name, config.Duration(res[r0-1].Retention))
-		}
-		parts = append(parts, why)
+// roundingReason says why a plan's edges moved: the start falls on a bucket
+// edge of resolution r0, the end on one of rEnd (coarser than the finest
+// when finer buckets had expired there).
+func roundingReason(res []state.Resolution, r0, rEnd int, start, end bool) string {
+	var why string
+	switch {
+	case start && end && r0 == rEnd:
+		why = "start and end moved out to " + res[r0].Name + " bucket edges"
+	case start && end:
+		why = "start moved back to a " + res[r0].Name + " bucket edge, end on to a " + res[rEnd].Name + " one"
+	case start:
+		why = "start moved back to a " + res[r0].Name + " bucket edge"
+	default:
+		why = "end moved on to a " + res[rEnd].Name + " bucket edge"
 	}
-	if end {
-		parts = append(parts, "end moved on to a bucket edge ("+res[0].Name+" buckets)")
+	if r := max(r0, rEnd); r > 0 && (start && r0 == r || end && rEnd == r) {
+		why += fmt.Sprintf(" (retention: %s buckets are kept %s)", res[r-1].Name, config.Duration(res[r-1].Retention))
 	}
-	return strings.Join(parts, "; ")
+	return why
 }
 
 // Sum adds family f over the plan's buckets into a new table.

@@ -31,12 +31,13 @@ func TestPlanWindow(t *testing.T) {
 		wantFrom, wantTo string
 		pieces           int
 		rounded          bool
+		why              string
 	}{
-		{"whole days", "2026-10-20T00:00:00Z", "2026-10-25T00:00:00Z", "2026-10-20T00:00:00Z", "2026-10-25T00:00:00Z", 1, false},
-		{"day plus hours plus 5m edges", "2026-10-20T22:55:00Z", "2026-10-22T01:10:00Z", "2026-10-20T22:55:00Z", "2026-10-22T01:10:00Z", 5, false},
-		{"unaligned edges widen to 5m", "2026-10-27T10:01:00Z", "2026-10-27T10:14:00Z", "2026-10-27T10:00:00Z", "2026-10-27T10:15:00Z", 1, true},
-		{"5m expired: widened to hours", "2026-09-20T10:05:00Z", "2026-09-20T12:10:00Z", "2026-09-20T10:00:00Z", "2026-09-20T13:00:00Z", 1, true},
-		{"hours expired: widened to days", "2026-01-05T10:00:00Z", "2026-01-06T12:00:00Z", "2026-01-05T00:00:00Z", "2026-01-07T00:00:00Z", 1, true},
+		{"whole days", "2026-10-20T00:00:00Z", "2026-10-25T00:00:00Z", "2026-10-20T00:00:00Z", "2026-10-25T00:00:00Z", 1, false, ""},
+		{"day plus hours plus 5m edges", "2026-10-20T22:55:00Z", "2026-10-22T01:10:00Z", "2026-10-20T22:55:00Z", "2026-10-22T01:10:00Z", 5, false, ""},
+		{"unaligned edges widen to 5m", "2026-10-27T10:01:00Z", "2026-10-27T10:14:00Z", "2026-10-27T10:00:00Z", "2026-10-27T10:15:00Z", 1, true, "start and end moved out to 5m bucket edges"},
+		{"5m expired: widened to hours", "2026-09-20T10:05:00Z", "2026-09-20T12:10:00Z", "2026-09-20T10:00:00Z", "2026-09-20T13:00:00Z", 1, true, "start and end moved out to hour bucket edges (retention: 5m buckets are kept 14d)"},
+		{"hours expired: widened to days", "2026-01-05T10:00:00Z", "2026-01-06T12:00:00Z", "2026-01-05T00:00:00Z", "2026-01-07T00:00:00Z", 1, true, "start and end moved out to day bucket edges (retention: hour buckets are kept 90d)"},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
@@ -49,6 +50,9 @@ func TestPlanWindow(t *testing.T) {
 			}
 			if got := FormatTime(p.To); got != c.wantTo {
 				t.Errorf("to = %s, want %s", got, c.wantTo)
+			}
+			if p.Rounding != c.why {
+				t.Errorf("rounding %q, want %q", p.Rounding, c.why)
 			}
 			if len(p.Pieces) != c.pieces || p.Rounded != c.rounded {
 				t.Errorf("pieces = %+v rounded %v, want %d pieces rounded %v", p.Pieces, p.Rounded, c.pieces, c.rounded)
