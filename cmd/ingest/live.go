@@ -203,6 +203,7 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 	)
 	pcfg := pipeline.FromConfig(cfg)
 	pcfg.Pseudonyms = ps
+	pcfg.Now = time.Now // live: max_future against the wall clock
 	pcfg.OnCommit = func(string, pipeline.Checkpoint) {
 		if m != nil && p != nil {
 			m.ObserveCommit(p.Status().CommitTook)

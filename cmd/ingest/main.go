@@ -35,6 +35,7 @@ Usage:
   ingest --data DIR --replay FILE [--rejects FILE] [--source NAME] [--config FILE]  replay
   ingest backup --from http://127.0.0.1:9464 --out FILE | --data DIR --out FILE  point-in-time copy
   ingest restore --in FILE --data DIR                                                rebuild a directory
+  ingest clock --data DIR [--set-latest TIME --repair]                               show or repair the event clock
   ingest --print-config [--config FILE]
 
 Live (no --replay) consumes events from NATS JetStream until SIGINT or
@@ -114,6 +115,8 @@ func run(args []string, stdout, stderr io.Writer) int {
 			return runBackup(args[1:], stdout, stderr)
 		case "restore":
 			return runRestore(args[1:], stdout, stderr)
+		case "clock":
+			return runClock(args[1:], stdout, stderr)
 		}
 	}
 	fs := flag.NewFlagSet("ingest", flag.ContinueOnError)

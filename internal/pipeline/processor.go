@@ -52,6 +52,12 @@ type Config struct {
 	// payloads are then kept only as length and hash (privacy.Redact), and
 	// buffered events are persisted re-encoded with the pseudonym.
 	Pseudonyms *privacy.Pseudonymizer
+	// Now, if set, is the wall clock of live input: events more than
+	// MaxFuture ahead of it are rejected as future. Replay leaves it nil
+	// and guards event time with MaxJump instead (see clock.go).
+	Now       func() time.Time
+	MaxFuture time.Duration // 0 disables
+	MaxJump   time.Duration // 0 disables
 	// OnCommit, if set, is called after each successful commit with the
 	// committed checkpoint, on the committing goroutine. Live input
 	// acknowledges its messages here.
@@ -66,6 +72,8 @@ func (c Config) Validate() error {
 	switch {
 	case c.Lateness < 0:
 		return errors.New("lateness must not be negative")
+	case c.MaxFuture < 0 || c.MaxJump < 0:
+		return errors.New("max future and max jump must not be negative")
 	case c.CacheUsers <= 0:
 		return errors.New("user cache size must be positive")
 	case c.CommitEvents <= 0:
@@ -121,6 +129,8 @@ type Processor struct {
 
 	mu     sync.Mutex // guards status
 	status Status
+
+	held []heldEvent // set aside by the clock guard, in position order (clock.go)
 
 	forgotten map[string]int64 // user → Unix ns (wall) until which their events are dropped
 	erase     map[string]int64 // erased since the last commit (user → until)
@@ -312,16 +322,20 @@ func (p *Processor) Watermark() (wm, maxSeen int64) {
 // validated then, so it decodes again.
 func (p *Processor) Readmit(ctx context.Context, pos uint64, payload []byte) error {
 	e, err := p.dec.Decode(payload)
-	return p.ReadmitDecoded(pos, &e, err)
+	return p.ReadmitDecoded(pos, payload, &e, err)
 }
 
 // ReadmitDecoded is Readmit for an input decoded by the caller.
-func (p *Processor) ReadmitDecoded(pos uint64, e *event.Event, decodeErr error) error {
+func (p *Processor) ReadmitDecoded(pos uint64, payload []byte, e *event.Event, decodeErr error) error {
 	if decodeErr != nil {
 		return fmt.Errorf("pipeline: buffered input %d no longer decodes (input changed since it was read?): %w", pos, decodeErr)
 	}
 	if p.cfg.Pseudonyms != nil {
 		e.User = p.cfg.Pseudonyms.Pseudonym(e.User)
+	}
+	if p.suspect(e.Time.UnixNano()) {
+		// Held aside when it was read: held again, undecided (see clock.go).
+		return p.hold(pos, e, payload, false)
 	}
 	p.reorder.Readmit(e, pos)
 	return nil
@@ -356,35 +370,19 @@ func (p *Processor) OfferDecoded(ctx context.Context, pos uint64, payload []byte
 		if err := p.reject(pos, re.Reason, re.Error(), payload); err != nil {
 			return err
 		}
-	} else if t := e.Time.UnixNano(); p.reorder.Late(t) {
-		// A late event may still be a plain duplicate of one we applied.
-		c, err := p.user(e.User)
-		if err != nil {
+	} else if r, msg := p.insane(e.Time.UnixNano()); r != "" {
+		if err := p.reject(pos, r, msg, payload); err != nil {
 			return err
 		}
-		if c.u.HasSeen(xxhash.Sum64String(e.ID)) {
-			p.ckpt.Counts.Duplicate++
-		} else {
-			p.ckpt.Counts.Late++
-			msg := fmt.Sprintf("late: event time %s is older than the watermark %s",
-				e.Time.Format(time.RFC3339Nano), time.Unix(0, p.reorder.Watermark()).UTC().Format(time.RFC3339Nano))
-			if err := p.rejectRecord(pos, event.ReasonLate, msg, payload); err != nil {
-				return err
-			}
+	} else if p.suspect(e.Time.UnixNano()) {
+		if err := p.hold(pos, e, payload, true); err != nil {
+			return err
 		}
-	} else {
-		p.reorder.Push(e, pos)
-		if p.cfg.PersistPending {
-			if p.cfg.Pseudonyms != nil {
-				p.pendingNew[pos] = event.AppendJSON(nil, e)
-			} else {
-				p.pendingNew[pos] = append([]byte(nil), payload...)
-			}
-		}
-		if t := e.Time.UnixNano(); t > p.lastEvent {
-			p.lastEvent = t
-		}
-		if err := p.release(); err != nil {
+	} else if err := p.admit(pos, e, payload); err != nil {
+		return err
+	}
+	if len(p.held) > 0 {
+		if err := p.decideHeld(pos+1, false); err != nil {
 			return err
 		}
 	}
@@ -584,6 +582,9 @@ func (p *Processor) needCommit() bool {
 // input is complete) and the source is marked done. It commits and waits.
 func (p *Processor) Finish(ctx context.Context, drain bool) error {
 	if drain {
+		if err := p.decideHeld(p.ckpt.Next, true); err != nil {
+			return err
+		}
 		var ferr error
 		p.reorder.Drain(func(it *sessionize.Item) {
 			if ferr == nil {
@@ -695,7 +696,7 @@ func (p *Processor) commit(ctx context.Context, wait bool) error {
 		p.pendingNew, p.released = make(map[uint64][]byte), nil
 		cp.Pending = nil
 	} else {
-		cp.Pending = p.reorder.Positions(nil)
+		cp.Pending = p.heldPositions(p.reorder.Positions(nil))
 		sort.Slice(cp.Pending, func(i, j int) bool { return cp.Pending[i] < cp.Pending[j] })
 	}
 	cp.Counts = p.ckpt.Counts.clone()
@@ -705,7 +706,7 @@ func (p *Processor) commit(ctx context.Context, wait bool) error {
 	}
 	switch {
 	case p.source == "": // no input begun (an erasure alone): leave the marker as it is
-	case len(cp.Pending) > 0 || (p.cfg.PersistPending && p.reorder.Len() > 0):
+	case len(cp.Pending) > 0 || (p.cfg.PersistPending && p.reorder.Len() > 0) || len(p.held) > 0:
 		c.Meta[metaOpen] = []byte(p.source)
 	default:
 		c.Meta[metaOpen] = []byte{}
