@@ -36,6 +36,7 @@ Usage:
   ingest backup --from http://127.0.0.1:9464 --out FILE | --data DIR --out FILE  point-in-time copy
   ingest restore --in FILE --data DIR                                                rebuild a directory
   ingest clock --data DIR [--set-latest TIME --repair]                               show or repair the event clock
+  ingest verify --data DIR                                                           check a directory end to end
   ingest --print-config [--config FILE]
 
 Live (no --replay) consumes events from NATS JetStream until SIGINT or
@@ -117,6 +118,8 @@ func run(args []string, stdout, stderr io.Writer) int {
 			return runRestore(args[1:], stdout, stderr)
 		case "clock":
 			return runClock(args[1:], stdout, stderr)
+		case "verify":
+			return runVerify(args[1:], stdout, stderr)
 		}
 	}
 	fs := flag.NewFlagSet("ingest", flag.ContinueOnError)

@@ -12,6 +12,7 @@ import (
 	"time"
 
 	"github.com/dgraph-io/badger/v4"
+	"github.com/dgraph-io/badger/v4/options"
 	"github.com/dgraph-io/ristretto/v2/z"
 
 	"github.com/touchledger/touchledger/internal/tally"
@@ -139,16 +140,30 @@ func openRaw(o Options) (*Store, error) {
 		WithDetectConflicts(false).
 		WithNumVersionsToKeep(1).
 		WithMetricsEnabled(false).
-		WithLogger(badgerLogger{o.Logger})
-	db, err := badger.Open(bo)
+		WithLogger(badgerLogger{o.Logger}).
+		// Corruption is refused, never read: every table's checksums are
+		// checked before Badger opens (checkFiles), every block's when read,
+		// every value's.
+		WithChecksumVerificationMode(options.OnBlockRead).
+		WithVerifyValueChecksum(true)
+	if err := lockFree(o.Dir); err != nil {
+		return nil, err
+	}
+	if err := checkFiles(o.Dir); err != nil {
+		return nil, err
+	}
+	db, err := openBadger(bo)
 	if err != nil && strings.Contains(err.Error(), z.NewFile.Error()) { // Badger wraps without %w
 		// A process killed right after Badger created a memtable file leaves
 		// that file empty, and the next Open fails with z.NewFile; Open has
 		// then set the file up and a second Open succeeds (Badger issue
 		// #2207, open as of v4.9). Our kill -9 test hits this.
-		db, err = badger.Open(bo)
+		db, err = openBadger(bo)
 	}
 	if err != nil {
+		if errors.Is(err, ErrCorrupt) {
+			return nil, fmt.Errorf("state: open %s: %w", o.Dir, err)
+		}
 		if errors.Is(err, badger.ErrTruncateNeeded) {
 			return nil, fmt.Errorf("state: open %s: %w", o.Dir, err)
 		}
@@ -599,6 +614,24 @@ func (r *Reader) Users(fn func(id string) error) error {
 	defer it.Close()
 	for it.Rewind(); it.Valid(); it.Next() {
 		if err := fn(string(it.Item().Key()[1:])); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// Checkpoints calls fn for every committed source and its checkpoint.
+func (r *Reader) Checkpoints(fn func(source string, cp []byte) error) error {
+	opts := badger.DefaultIteratorOptions
+	opts.Prefix = []byte{prefixCheckpoint}
+	it := r.txn.NewIterator(opts)
+	defer it.Close()
+	for it.Rewind(); it.Valid(); it.Next() {
+		v, err := it.Item().ValueCopy(nil)
+		if err != nil {
+			return fmt.Errorf("state: checkpoint: %w", err)
+		}
+		if err := fn(string(it.Item().Key()[1:]), v); err != nil {
 			return err
 		}
 	}
