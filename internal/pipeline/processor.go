@@ -132,7 +132,7 @@ type Processor struct {
 
 	held []heldEvent // set aside by the clock guard, in position order (clock.go)
 
-	forgotten map[string]int64 // user → Unix ns (wall) until which their events are dropped
+	forgotten map[string]int64 // state.ForgetKey(user) → Unix ns (wall) until which their events are dropped
 	erase     map[string]int64 // erased since the last commit (user → until)
 }
 
@@ -437,6 +437,9 @@ type ForgetReport struct {
 // plus the commit interval from now are dropped (counted as erased), so
 // late copies do not recreate the state. Aggregate counters hold no
 // identifiers and stay. id is the raw id; it is pseudonymised like input.
+// After the commit every version of the person's state is dropped from the
+// store's files (state.Store.EraseUser), and the erasure marker holds only
+// a hash of the id (state.ForgetKey).
 func (p *Processor) Forget(ctx context.Context, id string) (ForgetReport, error) {
 	if p.cfg.Pseudonyms != nil {
 		id = p.cfg.Pseudonyms.Pseudonym(id)
@@ -456,9 +459,17 @@ func (p *Processor) Forget(ctx context.Context, id string) (ForgetReport, error)
 	r.Buffered = p.reorder.CountUser(id)
 	until := time.Now().Add(p.cfg.Lateness + p.cfg.CommitInterval + time.Minute)
 	r.DroppedUntil = until.UTC()
-	p.forgotten[id] = until.UnixNano()
+	p.forgotten[state.ForgetKey(id)] = until.UnixNano()
 	p.erase[id] = until.UnixNano()
-	return r, p.commit(ctx, true)
+	if err := p.commit(ctx, true); err != nil {
+		return r, err
+	}
+	// The deletion is committed; now every version, the deletion marker
+	// included, leaves the disk.
+	if err := p.store.EraseUser(id); err != nil {
+		return r, fmt.Errorf("pipeline: erase %s from disk: %w", id, err)
+	}
+	return r, nil
 }
 
 // forgetPending notes that the buffered event at pos was applied.
@@ -507,12 +518,15 @@ func (p *Processor) Tick(ctx context.Context, now time.Time) error {
 }
 
 func (p *Processor) apply(e *event.Event) error {
-	if until, ok := p.forgotten[e.User]; ok {
-		if time.Now().UnixNano() < until {
-			p.ckpt.Counts.Erased++
-			return nil
+	if len(p.forgotten) > 0 {
+		k := state.ForgetKey(e.User)
+		if until, ok := p.forgotten[k]; ok {
+			if time.Now().UnixNano() < until {
+				p.ckpt.Counts.Erased++
+				return nil
+			}
+			delete(p.forgotten, k)
 		}
-		delete(p.forgotten, e.User)
 	}
 	c, err := p.user(e.User)
 	if err != nil {
@@ -666,7 +680,9 @@ func (p *Processor) commit(ctx context.Context, wait bool) error {
 		Meta:        map[string][]byte{},
 	}
 	for id, until := range p.erase {
-		c.Users[id] = nil // delete
+		// The state itself is dropped right after this commit
+		// (state.Store.EraseUser): a deletion here would leave a marker
+		// holding the key on disk, and hide the key from the drop.
 		if c.Forget == nil {
 			c.Forget = make(map[string]int64)
 		}

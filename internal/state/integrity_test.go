@@ -138,3 +138,49 @@ func TestVerifyIntactStore(t *testing.T) {
 		t.Errorf("verify read %d keys in %d tables, want the 12000 users and more", rep.Keys, rep.Tables)
 	}
 }
+
+// TestEraseUserKeepsPrefixSharers: dropping user "ann" physically must not
+// take "anna" (a prefix drop would), also when the process dies between
+// the drop and the write-back (the journal is restored by Open).
+func TestEraseUserKeepsPrefixSharers(t *testing.T) {
+	ctx := context.Background()
+	for _, crash := range []bool{false, true} {
+		dir := t.TempDir()
+		s, err := Open(ctx, DefaultOptions(dir))
+		if err != nil {
+			t.Fatal(err)
+		}
+		if _, err := s.Commit(ctx, &Commit{Users: map[string][]byte{"ann": []byte("A"), "anna": []byte("B"), "bob": []byte("C")}}); err != nil {
+			t.Fatal(err)
+		}
+		if crash {
+			// As EraseUser does up to the drop, then "dies".
+			wb := s.db.NewWriteBatch()
+			wb.Set(append([]byte{prefixJournal}, userKey("anna")...), []byte("B"))
+			wb.Set(append(userKey("ann"), dropSentinel...), nil)
+			wb.Set(append([]byte{prefixErasing, byte(len(userKey("ann")))}, userKey("ann")...), nil)
+			if err := wb.Flush(); err != nil {
+				t.Fatal(err)
+			}
+		} else if err := s.EraseUser("ann"); err != nil {
+			t.Fatal(err)
+		}
+		s.Close()
+		if s, err = Open(ctx, DefaultOptions(dir)); err != nil {
+			t.Fatal(err)
+		}
+		r := s.NewReader()
+		for id, want := range map[string]string{"ann": "", "anna": "B", "bob": "C"} {
+			if got, err := r.User(id); err != nil || string(got) != want {
+				t.Errorf("crash=%v: user %s = %q (%v), want %q", crash, id, got, err, want)
+			}
+		}
+		n := 0
+		r.Users(func(string) error { n++; return nil })
+		if n != 2 {
+			t.Errorf("crash=%v: %d users, want 2", crash, n)
+		}
+		r.Discard()
+		s.Close()
+	}
+}

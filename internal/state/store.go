@@ -2,7 +2,9 @@ package state
 
 import (
 	"context"
+	"crypto/sha256"
 	"encoding/binary"
+	"encoding/hex"
 	"errors"
 	"fmt"
 	"log/slog"
@@ -104,6 +106,10 @@ func Open(ctx context.Context, o Options) (*Store, error) {
 		return nil, err
 	}
 	if err := s.checkFormat(); err != nil {
+		s.db.Close()
+		return nil, err
+	}
+	if err := s.restoreJournal(false); err != nil {
 		s.db.Close()
 		return nil, err
 	}
@@ -360,7 +366,7 @@ func (s *Store) Commit(ctx context.Context, c *Commit) (CommitStats, error) {
 		}
 	}
 	for id, until := range c.Forget {
-		e := badger.NewEntry(append([]byte{prefixForgotten}, id...), binary.AppendVarint(nil, until))
+		e := badger.NewEntry(append([]byte{prefixForgotten}, ForgetKey(id)...), binary.AppendVarint(nil, until))
 		if ttl := time.Until(time.Unix(0, until)); ttl > 0 {
 			e = e.WithTTL(ttl + time.Minute)
 		}
@@ -579,9 +585,10 @@ func (r *Reader) Pending(source string, fn func(pos uint64, payload []byte) erro
 	return nil
 }
 
-// Forgotten calls fn for every erasure marker still alive: a user erased
-// recently, with the Unix ns time until which their events are dropped.
-func (r *Reader) Forgotten(fn func(id string, until int64) error) error {
+// Forgotten calls fn for every erasure marker still alive: the ForgetKey
+// of a user erased recently, with the Unix ns time until which their
+// events are dropped.
+func (r *Reader) Forgotten(fn func(key string, until int64) error) error {
 	opts := badger.DefaultIteratorOptions
 	opts.Prefix = []byte{prefixForgotten}
 	it := r.txn.NewIterator(opts)
@@ -752,6 +759,15 @@ func (s *Store) Prune(ctx context.Context, latest int64, limit int) (PruneReport
 	}
 	rep.Buckets = len(prefixes)
 	return rep, nil
+}
+
+// ForgetKey is what an erasure marker is stored under: the first 128 bits
+// of SHA-256(id) in hex, so the marker that drops a person's late events
+// does not keep their id (or pseudonym) on disk. Reader.Forgotten returns
+// these keys.
+func ForgetKey(id string) string {
+	h := sha256.Sum256([]byte(id))
+	return hex.EncodeToString(h[:16])
 }
 
 // ReclaimSpace flattens the LSM tree and runs value-log GC until it finds

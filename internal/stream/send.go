@@ -5,12 +5,14 @@ import (
 	"bytes"
 	"compress/gzip"
 	"context"
+	"encoding/json"
 	"errors"
 	"fmt"
 	"io"
 	"strconv"
 	"strings"
 	"time"
+	"unicode/utf8"
 
 	"github.com/cespare/xxhash/v2"
 	"github.com/nats-io/nats.go"
@@ -122,7 +124,9 @@ var ErrUndelivered = errors.New("not delivered")
 // Each line is decoded with the event contract but without size limits on
 // names and without a currency check, so only a line that no configuration
 // would accept is "unparsed". Unparsed lines are still published, to
-// <prefix>.in.action.<xxhash64 of the line> with the message id
+// <prefix>.in.action.<xxhash64 of the line> (or, when the line is still a
+// JSON object naming a "user", to that user's subject, so their partition
+// holds it and an erasure finds it) with the message id
 // raw-<that hash>-<line number>: the worker rejects them into dead letters
 // with their reason, as a replay rejects them into its rejects file, and a
 // repeated send of the same file does not duplicate them.
@@ -296,6 +300,14 @@ func (s *sender) add(dec *event.Decoder, payload []byte, lineNo int64) error {
 		var hex [16]byte
 		key := string(appendHex64(hex[:0], xxhash.Sum64(payload)))
 		subject = s.o.Prefix + ".in." + KindAction + "." + key
+		if u, kind := probeUser(payload); u != "" {
+			// Still a person's event: on their subject, so it lands in
+			// their partition and an erasure finds it.
+			if s.o.SubjectUser != nil {
+				u = s.o.SubjectUser(u)
+			}
+			subject = Subject(s.o.Prefix, kind, u)
+		}
 		id = "raw-" + key + "-" + strconv.FormatInt(lineNo, 10)
 		s.stats.Unparsed++
 	}
@@ -505,6 +517,22 @@ func (s *sender) closeOwn() {
 	for _, nc := range s.own {
 		nc.Close()
 	}
+}
+
+// probeUser returns the user and kind (touch or action) of an invalid line
+// that is still a JSON object with a non-empty string "user", or "".
+func probeUser(payload []byte) (user, kind string) {
+	var probe struct {
+		User string `json:"user"`
+		Kind string `json:"kind"`
+	}
+	if json.Unmarshal(payload, &probe) != nil || probe.User == "" || !utf8.ValidString(probe.User) {
+		return "", ""
+	}
+	if probe.Kind == KindTouch {
+		return probe.User, KindTouch
+	}
+	return probe.User, KindAction
 }
 
 // draw redraws the progress line; final ends it with a newline.
