@@ -228,11 +228,19 @@ func replayFile(ctx context.Context, cfg config.Config, dir, path, rejectsPath, 
 			source = abs
 		}
 	}
+	// The key before the directory: a bad key file creates nothing.
+	ps, err := pipeline.PseudonymsFrom(cfg)
+	if err != nil {
+		return err
+	}
 	st, err := state.Open(ctx, pipeline.StoreOptions(dir, cfg))
 	if err != nil {
 		return err
 	}
 	defer st.Close()
+	if err := pipeline.CheckKey(ctx, st, ps); err != nil {
+		return err
+	}
 	if rejectsPath == "" {
 		rejectsPath = filepath.Join(dir, "rejects.jsonl")
 	}
@@ -243,9 +251,7 @@ func replayFile(ctx context.Context, cfg config.Config, dir, path, rejectsPath, 
 	rf.Rotate(int64(cfg.Rejects.MaxMiB)<<20, cfg.Rejects.Keep)
 	defer rf.Close()
 	pcfg := pipeline.FromConfig(cfg)
-	if pcfg.Pseudonyms, err = pipeline.PseudonymsFrom(cfg); err != nil {
-		return err
-	}
+	pcfg.Pseudonyms = ps
 	p, err := pipeline.New(st, pcfg, rf, log)
 	if err != nil {
 		return err

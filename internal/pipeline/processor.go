@@ -187,6 +187,9 @@ func New(store *state.Store, cfg Config, rejects RejectSink, log *slog.Logger) (
 	if err != nil {
 		return nil, err
 	}
+	if err := CheckKey(context.Background(), store, cfg.Pseudonyms); err != nil {
+		return nil, err
+	}
 	res := store.Resolutions()
 	p := &Processor{
 		cfg: cfg, store: store, log: log, rejects: rejects,

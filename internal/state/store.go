@@ -627,6 +627,23 @@ func (r *Reader) Users(fn func(id string) error) error {
 	return nil
 }
 
+// MetaPrefix returns every meta entry whose name starts with prefix, by name.
+func (r *Reader) MetaPrefix(prefix string) (map[string][]byte, error) {
+	opts := badger.DefaultIteratorOptions
+	opts.Prefix = metaKey(prefix)
+	it := r.txn.NewIterator(opts)
+	defer it.Close()
+	out := map[string][]byte{}
+	for it.Rewind(); it.Valid(); it.Next() {
+		v, err := it.Item().ValueCopy(nil)
+		if err != nil {
+			return nil, fmt.Errorf("state: meta: %w", err)
+		}
+		out[string(it.Item().Key()[1:])] = v
+	}
+	return out, nil
+}
+
 // Checkpoints calls fn for every committed source and its checkpoint.
 func (r *Reader) Checkpoints(fn func(source string, cp []byte) error) error {
 	opts := badger.DefaultIteratorOptions
