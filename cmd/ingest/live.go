@@ -103,7 +103,27 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 			return err
 		}
 	}
+	// The key before the directory: a bad key file creates nothing.
+	ps, err := pipeline.PseudonymsFrom(cfg)
+	if err != nil {
+		return err
+	}
 	if err := os.MkdirAll(dir, 0o750); err != nil {
+		return err
+	}
+	// The store first: its lock keeps a second worker on this directory
+	// from starting an embedded server on the same JetStream directory,
+	// and a wrong key is refused before anything is consumed.
+	st, err := state.Open(ctx, pipeline.StoreOptions(dir, cfg))
+	if err != nil {
+		return err
+	}
+	defer func() {
+		if cerr := st.Close(); err == nil {
+			err = cerr
+		}
+	}()
+	if err := pipeline.CheckKey(ctx, st, ps); err != nil {
 		return err
 	}
 
@@ -137,20 +157,7 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 		return err
 	}
 
-	// The store and the processor.
-	st, err := state.Open(ctx, pipeline.StoreOptions(dir, cfg))
-	if err != nil {
-		return err
-	}
-	defer func() {
-		if cerr := st.Close(); err == nil {
-			err = cerr
-		}
-	}()
-	ps, err := pipeline.PseudonymsFrom(cfg)
-	if err != nil {
-		return err
-	}
+	// The processor.
 	if ps != nil {
 		l.scfg.SubjectUser = ps.Pseudonym // erasure finds subjects by the pseudonym's key
 	}
@@ -164,6 +171,7 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 	)
 	pcfg := pipeline.FromConfig(cfg)
 	pcfg.Pseudonyms = ps
+	pcfg.Now = time.Now // live: max_future against the wall clock
 	pcfg.OnCommit = func(string, pipeline.Checkpoint) {
 		if m != nil && p != nil {
 			m.ObserveCommit(p.Status().CommitTook)

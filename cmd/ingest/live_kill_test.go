@@ -6,9 +6,12 @@ import (
 	"encoding/json"
 	"fmt"
 	"math/rand"
+	"net"
 	"os"
 	"os/exec"
 	"path/filepath"
+	"regexp"
+	"strconv"
 	"strings"
 	"sync"
 	"syscall"
@@ -373,4 +376,262 @@ func allAnswers(t *testing.T, dir string, cfg config.Config, from, to time.Time)
 		t.Fatal(err)
 	}
 	return string(b)
+}
+
+// TestEmbeddedKillOrderedSend is the nemesis test of the default
+// one-machine topology (issue 9, item 1): the worker hosts the embedded
+// NATS server, so every kill -9 takes the bus down with it while `ingest
+// send` processes publish slices of the input, re-publish some lines at
+// once (inside the stream's de-duplication window) and lines of the slice
+// before last (outside it). The worker is killed at random moments at
+// least ten times and restarted on the same port; the senders reconnect
+// and re-publish from their oldest unacknowledged line in order. Then
+// nothing may be late, every unique valid event is accepted once, every
+// invalid line is one dead letter, and every answer equals a clean replay.
+// On the old sender (failed publications re-sent behind newer ones) the
+// re-sent events arrived behind the watermark and were rejected as late.
+func TestEmbeddedKillOrderedSend(t *testing.T) {
+	visitors, days, slices, minKills, rate := 8000, 6, 8, 14, "3000"
+	if testing.Short() {
+		visitors, days, slices, minKills, rate = 3000, 4, 5, 10, "2000"
+	}
+	bin := buildIngest(t)
+	const window = time.Second // the stream's de-duplication window in this test
+
+	c := shop.DefaultConfig()
+	c.Visitors, c.Days, c.ShiftDay, c.IncidentDay = visitors, days, days/2, days-1
+	var buf bytes.Buffer
+	if _, err := shop.Generate(&buf, c); err != nil {
+		t.Fatal(err)
+	}
+	var lines []string
+	junk := 0
+	for i, l := range strings.Split(strings.TrimSpace(buf.String()), "\n") {
+		lines = append(lines, l)
+		if i%997 == 0 {
+			lines = append(lines, fmt.Sprintf(`{"id":"junk-%d","user":"j%d","time":"soon","kind":"action","action":"view_item"}`, i, i))
+			junk++
+		}
+	}
+	input := []byte(strings.Join(lines, "\n") + "\n")
+	tmp := t.TempDir()
+	cfgFile := filepath.Join(tmp, "tl.yaml")
+	cfgYAML := "lateness: 3s\nstore:\n  commit_events: 2000\n  commit_interval: 200ms\n"
+	if err := os.WriteFile(cfgFile, []byte(cfgYAML), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	fcfg, err := config.Load(cfgFile)
+	if err != nil {
+		t.Fatal(err)
+	}
+	port := freePort(t)
+	url := fmt.Sprintf("nats://127.0.0.1:%d", port)
+
+	per := (len(lines) + slices - 1) / slices
+	var parts [][]string
+	for i := 0; i < len(lines); i += per {
+		parts = append(parts, lines[i:min(i+per, len(lines))])
+	}
+	// send runs `ingest send` on ls and returns its stored and duplicate
+	// counts from its summary line.
+	var (
+		pubMu  sync.Mutex
+		pubErr error
+		fileNo int
+	)
+	send := func(ls []string) (stored, dup int) {
+		pubMu.Lock()
+		fileNo++
+		name := filepath.Join(tmp, fmt.Sprintf("slice-%d.jsonl", fileNo))
+		pubMu.Unlock()
+		if err := os.WriteFile(name, []byte(strings.Join(ls, "\n")+"\n"), 0o644); err != nil {
+			t.Error(err)
+			return
+		}
+		out, err := exec.Command(bin, "send", "--nats", url, "--rate", rate, "--progress=false", name).CombinedOutput()
+		pubMu.Lock()
+		defer pubMu.Unlock()
+		if err != nil && pubErr == nil {
+			pubErr = fmt.Errorf("ingest send %s: %v\n%s", name, err, out)
+		}
+		m := sendSummary.FindSubmatch(out)
+		if m == nil {
+			if pubErr == nil {
+				pubErr = fmt.Errorf("no summary from ingest send:\n%s", out)
+			}
+			return 0, 0
+		}
+		stored, _ = strconv.Atoi(string(m[1]))
+		dup, _ = strconv.Atoi(string(m[2]))
+		return stored, dup
+	}
+	var outside, inside int
+	publish := func(i int) {
+		send(parts[i])
+		_, d := send(valid(parts[i][:40]))
+		inside += d
+		if i >= 2 {
+			s, _ := send(valid(parts[i-2][len(parts[i-2])/2:][:60]))
+			outside += s
+		}
+	}
+
+	dir := filepath.Join(tmp, "data")
+	var stderr lockedBuffer
+	start := func() *exec.Cmd {
+		cmd := exec.Command(bin, "--data", dir, "--port", strconv.Itoa(port), "--config", cfgFile, "--http", "off",
+			"--dedup-window", window.String(), "--watchdog", "5s")
+		cmd.Stdout = &stderr
+		cmd.Stderr = &stderr
+		if err := cmd.Start(); err != nil {
+			t.Fatal(err)
+		}
+		return cmd
+	}
+	published := make(chan struct{})
+	go func() {
+		defer close(published)
+		for i := range len(parts) - 1 {
+			publish(i)
+			time.Sleep(window + 200*time.Millisecond)
+		}
+	}()
+	rng := rand.New(rand.NewSource(9))
+	kills := 0
+	for done := false; !done || kills < minKills; {
+		select {
+		case <-published:
+			done = true
+		default:
+		}
+		cmd := start()
+		time.Sleep(time.Duration(300+rng.Intn(1200)) * time.Millisecond)
+		cmd.Process.Signal(syscall.SIGKILL)
+		err := cmd.Wait()
+		if ee, ok := err.(*exec.ExitError); !ok || !ee.ProcessState.Sys().(syscall.WaitStatus).Signaled() {
+			t.Fatalf("worker ended before the kill (%v):\n%s", err, stderr.String())
+		}
+		kills++
+	}
+	cmd := start()
+	defer cmd.Process.Kill()
+	publish(len(parts) - 1)
+	pubMu.Lock()
+	if pubErr != nil {
+		t.Fatal(pubErr)
+	}
+	pubMu.Unlock()
+
+	nc, err := nats.Connect(url)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer nc.Close()
+	js, err := jetstream.New(nc)
+	if err != nil {
+		t.Fatal(err)
+	}
+	scfg := stream.DefaultConfig()
+	ctx := context.Background()
+	deadline := time.Now().Add(60 * time.Second)
+	for {
+		cons, err := js.Consumer(ctx, scfg.Stream, stream.ConsumerName(scfg.AllPartitions()))
+		if err == nil {
+			if info := cons.CachedInfo(); info.NumPending == 0 && info.NumAckPending == 0 && info.AckFloor.Stream > 0 {
+				break
+			}
+		}
+		if time.Now().After(deadline) {
+			t.Fatalf("worker did not catch up:\n%s", stderr.String())
+		}
+		time.Sleep(50 * time.Millisecond)
+	}
+	dead, err := js.Stream(ctx, scfg.DeadStream)
+	if err != nil {
+		t.Fatal(err)
+	}
+	deadMsgs := dead.CachedInfo().State.Msgs
+	deadLines := map[string]int{}
+	oc, err := dead.OrderedConsumer(ctx, jetstream.OrderedConsumerConfig{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for n := uint64(0); n < deadMsgs; {
+		batch, err := oc.Fetch(int(deadMsgs-n), jetstream.FetchMaxWait(5*time.Second))
+		if err != nil {
+			t.Fatal(err)
+		}
+		got := 0
+		for m := range batch.Messages() {
+			deadLines[string(m.Data())]++
+			got++
+		}
+		if got == 0 {
+			t.Fatalf("read %d of %d dead letters", n, deadMsgs)
+		}
+		n += uint64(got)
+	}
+	time.Sleep(fcfg.Lateness.D() + time.Second)
+	nc.Close()
+	cmd.Process.Signal(syscall.SIGTERM)
+	if err := cmd.Wait(); err != nil {
+		t.Fatalf("graceful stop: %v\n%s", err, stderr.String())
+	}
+	t.Logf("%d lines; worker and its embedded server killed %d times; re-published %d inside the window (dropped by the stream), %d outside",
+		len(lines), kills, inside, outside)
+	if outside == 0 || inside == 0 {
+		t.Fatalf("duplicates not exercised: %d inside, %d outside the window", inside, outside)
+	}
+
+	cp := checkpointOf(t, dir, scfg.SourceName(scfg.AllPartitions()))
+	unique := uint64(len(lines) - junk)
+	if n := pendingOf(t, dir, scfg.SourceName(scfg.AllPartitions())); n > 0 {
+		t.Errorf("%d events still buffered in the store after the lateness passed", n)
+	}
+	if cp.Counts.Accepted != unique || cp.Counts.Late != 0 {
+		t.Errorf("counts %+v: want accepted %d, late 0 (events lost: %d)", cp.Counts, unique, int64(unique)-int64(cp.Counts.Accepted))
+	}
+	if cp.Counts.Duplicate < uint64(outside) {
+		t.Errorf("duplicates %d, want at least the %d published outside the window", cp.Counts.Duplicate, outside)
+	}
+	// Every invalid line is in the dead letters, and every rejection is one
+	// dead letter. An invalid line can be rejected twice here: when the
+	// server was down longer than the 1 s window, a line stored just before
+	// a kill is stored again (there is no user to de-duplicate it by).
+	if len(deadLines) != junk || cp.Counts.RejectedTotal() != deadMsgs {
+		t.Errorf("dead letters: %d distinct lines of %d invalid ones, %d messages for %d rejections", len(deadLines), junk, deadMsgs, cp.Counts.RejectedTotal())
+	}
+	for l, n := range deadLines {
+		if !strings.Contains(l, `"junk-`) {
+			t.Errorf("dead letter %q (%d times) is not an invalid line", l, n)
+		}
+	}
+	clean := t.TempDir()
+	replayClean(t, clean, fcfg, input)
+	from := c.Start
+	to := from.Add(time.Duration(days) * 24 * time.Hour)
+	got, want := allAnswers(t, dir, fcfg, from, to), allAnswers(t, clean, fcfg, from, to)
+	if got != want {
+		i := 0
+		for i < len(got) && i < len(want) && got[i] == want[i] {
+			i++
+		}
+		lo := max(0, i-100)
+		t.Errorf("answers after kills differ from a clean replay at byte %d:\n got …%.300s\nwant …%.300s", i, got[lo:], want[lo:])
+	}
+}
+
+// sendSummary picks the stored and duplicate counts from the summary line
+// of ingest send.
+var sendSummary = regexp.MustCompile(`(\d+) stored, (\d+) already in the stream`)
+
+// freePort returns a loopback port free at the time of the call.
+func freePort(t *testing.T) int {
+	t.Helper()
+	ln, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer ln.Close()
+	return ln.Addr().(*net.TCPAddr).Port
 }

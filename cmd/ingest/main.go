@@ -36,6 +36,8 @@ Usage:
   ingest --data DIR --replay FILE [--rejects FILE] [--source NAME] [--config FILE]  replay
   ingest backup --from http://127.0.0.1:9464 --out FILE | --data DIR --out FILE  point-in-time copy
   ingest restore --in FILE --data DIR                                                rebuild a directory
+  ingest clock --data DIR [--set-latest TIME --repair]                               show or repair the event clock
+  ingest verify --data DIR                                                           check a directory end to end
   ingest --print-config [--config FILE]
 
 Live (no --replay) consumes events from NATS JetStream until SIGINT or
@@ -115,6 +117,10 @@ func run(args []string, stdout, stderr io.Writer) int {
 			return runBackup(args[1:], stdout, stderr)
 		case "restore":
 			return runRestore(args[1:], stdout, stderr)
+		case "clock":
+			return runClock(args[1:], stdout, stderr)
+		case "verify":
+			return runVerify(args[1:], stdout, stderr)
 		}
 	}
 	fs := flag.NewFlagSet("ingest", flag.ContinueOnError)
@@ -228,11 +234,19 @@ func replayFile(ctx context.Context, cfg config.Config, dir, path, rejectsPath, 
 			source = abs
 		}
 	}
+	// The key before the directory: a bad key file creates nothing.
+	ps, err := pipeline.PseudonymsFrom(cfg)
+	if err != nil {
+		return err
+	}
 	st, err := state.Open(ctx, pipeline.StoreOptions(dir, cfg))
 	if err != nil {
 		return err
 	}
 	defer st.Close()
+	if err := pipeline.CheckKey(ctx, st, ps); err != nil {
+		return err
+	}
 	if rejectsPath == "" {
 		rejectsPath = filepath.Join(dir, "rejects.jsonl")
 	}
@@ -243,9 +257,7 @@ func replayFile(ctx context.Context, cfg config.Config, dir, path, rejectsPath, 
 	rf.Rotate(int64(cfg.Rejects.MaxMiB)<<20, cfg.Rejects.Keep)
 	defer rf.Close()
 	pcfg := pipeline.FromConfig(cfg)
-	if pcfg.Pseudonyms, err = pipeline.PseudonymsFrom(cfg); err != nil {
-		return err
-	}
+	pcfg.Pseudonyms = ps
 	p, err := pipeline.New(st, pcfg, rf, log)
 	if err != nil {
 		return err

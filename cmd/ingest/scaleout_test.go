@@ -252,7 +252,7 @@ func TestScaleOutCluster(t *testing.T) {
 	var stats stream.SendStats
 	go func() {
 		var err error
-		stats, err = stream.Send(ctx, pjs, bytes.NewReader(input), stream.SendOptions{AckTimeout: 5 * time.Second, Retries: 10})
+		stats, err = stream.Send(ctx, pjs, bytes.NewReader(input), stream.SendOptions{AckTimeout: 5 * time.Second, RetryFor: time.Minute})
 		sent <- err
 	}()
 	third := uint64(gen.Events / 3)

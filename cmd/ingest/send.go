@@ -33,6 +33,13 @@ stream with the reason. FILE "-" reads standard input; gzip is recognised. A
 progress bar is drawn on standard error when it is a terminal. The stream
 must exist: a worker creates it when it starts.
 
+The input order is kept across failures: when an acknowledgement fails or
+the server goes away (a worker hosting the embedded server restarted),
+send reconnects and publishes again from the oldest unacknowledged line
+onward, in order; the stream drops what it already had by message id. It
+keeps trying for --retry-for, then exits 1 naming the line it could not
+deliver (every earlier line is in the stream).
+
 Options:
 `
 
@@ -47,6 +54,7 @@ func runSend(args []string, stdout, stderr io.Writer) int {
 	fs.StringVar(&o.Prefix, "prefix", o.Prefix, "subject `prefix`")
 	fs.Float64Var(&o.Rate, "rate", 0, "publish at most this many `events` per second (0 = as fast as the stream acknowledges)")
 	fs.IntVar(&o.MaxInFlight, "max-in-flight", o.MaxInFlight, "most `messages` published and not yet acknowledged")
+	cli.DurationVar(fs, &o.RetryFor, "retry-for", o.RetryFor, "keep re-publishing this `long` while the oldest unacknowledged line fails (the server down, the stream missing)")
 	cfgPath := fs.String("config", "", "configuration `file`: with privacy.key_file (or $TOUCHLEDGER_KEY_FILE) subjects carry the pseudonym's key, not the raw id's")
 	version := cli.AddVersion(fs)
 	fs.Usage = func() {
@@ -98,23 +106,34 @@ func runSend(args []string, stdout, stderr io.Writer) int {
 		o.Progress = stderr
 	}
 	log := slog.New(slog.NewTextHandler(stderr, &slog.HandlerOptions{Level: slog.LevelWarn}))
-	nc, err := stream.Connect(nf.Options("touchledger send"), log)
-	if err != nil {
+	// Connections that do not reconnect by themselves: on a loss Send
+	// dials a new one and re-publishes from the oldest unacknowledged line
+	// in order, so a worker restarted with its embedded server gets the
+	// input in order.
+	copts := nf.Options("touchledger send")
+	copts.NoReconnect = true
+	if err := copts.Validate(); err != nil {
 		fmt.Fprintf(stderr, "ingest send: %v\n", err)
-		return 1
+		return 2
 	}
-	defer drain(nc)
-	// The async window of the JetStream context covers Send's.
-	js, err := jetstream.New(nc, jetstream.WithPublishAsyncMaxPending(max(o.MaxInFlight, 4000)))
-	if err != nil {
-		fmt.Fprintf(stderr, "ingest send: %v\n", err)
-		return 1
+	o.Dial = func(context.Context) (jetstream.JetStream, error) {
+		nc, err := stream.Connect(copts, log)
+		if err != nil {
+			return nil, err
+		}
+		// The async window of the JetStream context covers Send's.
+		js, err := jetstream.New(nc, jetstream.WithPublishAsyncMaxPending(max(o.MaxInFlight, 4000)))
+		if err != nil {
+			nc.Close()
+			return nil, err
+		}
+		return js, nil
 	}
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
 	defer stop()
-	st, err := stream.Send(ctx, js, in, o)
-	fmt.Fprintf(stdout, "sent %s: %d lines, %d stored, %d already in the stream, %d not valid events (%.2fs, %.0f/s)\n",
-		path, st.Lines, st.Stored, st.Duplicates, st.Unparsed, st.Took.Seconds(), float64(st.Lines)/max(st.Took.Seconds(), 1e-9))
+	st, err := stream.Send(ctx, nil, in, o)
+	fmt.Fprintf(stdout, "sent %s: %d lines, %d stored, %d already in the stream, %d not valid events, %d rewinds (%.2fs, %.0f/s)\n",
+		path, st.Lines, st.Stored, st.Duplicates, st.Unparsed, st.Rewinds, st.Took.Seconds(), float64(st.Lines)/max(st.Took.Seconds(), 1e-9))
 	if err != nil {
 		if errors.Is(err, nats.ErrNoResponders) || errors.Is(err, jetstream.ErrNoStreamResponse) {
 			err = fmt.Errorf("%w (no stream takes %s.in.* subjects: is a worker running? it creates the stream and the embedded server maps the subjects)", err, o.Prefix)

@@ -118,6 +118,18 @@ type Rejects struct {
 	Keep int `yaml:"keep"`
 }
 
+// Clock guards event time against events far ahead of the rest
+// (internal/pipeline, clock.go).
+type Clock struct {
+	// MaxFuture: live input rejects an event more than this ahead of the
+	// wall clock (reason future). 0 disables. Default 10m.
+	MaxFuture Duration `yaml:"max_future"`
+	// MaxJump: replay holds an event more than this ahead of the largest
+	// event time seen aside until later events confirm the new time, else
+	// rejects it as future. 0 disables. Default 1d.
+	MaxJump Duration `yaml:"max_jump"`
+}
+
 // Privacy configures keyed pseudonyms for user ids (internal/privacy).
 type Privacy struct {
 	// KeyFile is a file holding the pseudonymisation key (at least 32 bytes,
@@ -199,6 +211,8 @@ type Config struct {
 	Privacy Privacy `yaml:"privacy"`
 	// Rejects configures the replay rejects file.
 	Rejects Rejects `yaml:"rejects"`
+	// Clock guards event time.
+	Clock Clock `yaml:"clock"`
 }
 
 // Default returns the documented defaults.
@@ -245,6 +259,7 @@ func Default() Config {
 		},
 		Privacy: Privacy{KeyVersion: 1},
 		Rejects: Rejects{MaxMiB: 64, Keep: 3},
+		Clock:   Clock{MaxFuture: Duration(10 * time.Minute), MaxJump: Duration(day)},
 		Limits:  Limits{MaxPayload: 64 << 10, MaxID: 128, MaxUser: 256, MaxName: 128},
 	}
 }

@@ -58,6 +58,7 @@ func TestDefault(t *testing.T) {
 		Limits:  Limits{MaxPayload: 65536, MaxID: 128, MaxUser: 256, MaxName: 128},
 		Privacy: Privacy{KeyVersion: 1},
 		Rejects: Rejects{MaxMiB: 64, Keep: 3},
+		Clock:   Clock{MaxFuture: Duration(10 * time.Minute), MaxJump: Duration(day)},
 	}
 	if !reflect.DeepEqual(got, want) {
 		t.Errorf("Default() =\n%+v\nwant\n%+v", got, want)

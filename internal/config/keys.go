@@ -52,6 +52,9 @@ var keyDocs = []struct{ Key, Doc string }{
 	{"rejects", `Rotation of the replay rejects file.`},
 	{"rejects.max_mib", `Rotate the rejects file at the start of a replay when it is larger than this; 0 never rotates.`},
 	{"rejects.keep", `Rotated rejects files kept.`},
+	{"clock", `Guards event time against one event far ahead of the rest (reason future). Event times must also lie in the years 1970 to 2099.`},
+	{"clock.max_future", `Live input rejects an event more than this ahead of the wall clock. 0 disables.`},
+	{"clock.max_jump", `Replay holds an event more than this ahead of the largest event time seen aside until 8 held events within this of each other confirm the jump; one unconfirmed 4096 inputs later, or at the end of the input, is rejected as future. 0 disables.`},
 }
 
 // keyDoc returns the explanation of a dotted key.

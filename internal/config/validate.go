@@ -86,6 +86,12 @@ func (c Config) Validate() error {
 	v.atLeast("privacy.key_version", c.Privacy.KeyVersion, 1)
 	v.atLeast("rejects.max_mib", c.Rejects.MaxMiB, 0)
 	v.atLeast("rejects.keep", c.Rejects.Keep, 1)
+	if c.Clock.MaxFuture < 0 {
+		v.add("clock.max_future", "must not be negative, got %s", c.Clock.MaxFuture)
+	}
+	if c.Clock.MaxJump < 0 {
+		v.add("clock.max_jump", "must not be negative, got %s", c.Clock.MaxJump)
+	}
 
 	s := c.Store
 	v.resolutions(s.Resolutions)

@@ -97,11 +97,13 @@ const (
 	ReasonTooLarge     Reason = "too_large"     // the payload exceeds the size limit
 	ReasonCurrency     Reason = "currency"      // currency differs from the configured one
 	ReasonLate         Reason = "late"          // event time is older than the watermark
+	ReasonFuture       Reason = "future"        // event time is too far ahead: of the wall clock (live), of the other events (replay), or after 2099
+	ReasonBadSubject   Reason = "bad_subject"   // the bus subject's kind or user key does not match the event
 )
 
 // Reasons lists every reason, for metrics and documentation.
 var Reasons = []Reason{ReasonBadJSON, ReasonMissingField, ReasonBadField, ReasonBadTime,
-	ReasonBadKind, ReasonBadValue, ReasonTooLarge, ReasonCurrency, ReasonLate}
+	ReasonBadKind, ReasonBadValue, ReasonTooLarge, ReasonCurrency, ReasonLate, ReasonFuture, ReasonBadSubject}
 
 // RejectError is the error returned for any input that is not accepted.
 type RejectError struct {

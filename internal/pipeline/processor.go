@@ -52,6 +52,12 @@ type Config struct {
 	// payloads are then kept only as length and hash (privacy.Redact), and
 	// buffered events are persisted re-encoded with the pseudonym.
 	Pseudonyms *privacy.Pseudonymizer
+	// Now, if set, is the wall clock of live input: events more than
+	// MaxFuture ahead of it are rejected as future. Replay leaves it nil
+	// and guards event time with MaxJump instead (see clock.go).
+	Now       func() time.Time
+	MaxFuture time.Duration // 0 disables
+	MaxJump   time.Duration // 0 disables
 	// OnCommit, if set, is called after each successful commit with the
 	// committed checkpoint, on the committing goroutine. Live input
 	// acknowledges its messages here.
@@ -66,6 +72,8 @@ func (c Config) Validate() error {
 	switch {
 	case c.Lateness < 0:
 		return errors.New("lateness must not be negative")
+	case c.MaxFuture < 0 || c.MaxJump < 0:
+		return errors.New("max future and max jump must not be negative")
 	case c.CacheUsers <= 0:
 		return errors.New("user cache size must be positive")
 	case c.CommitEvents <= 0:
@@ -122,7 +130,9 @@ type Processor struct {
 	mu     sync.Mutex // guards status
 	status Status
 
-	forgotten map[string]int64 // user → Unix ns (wall) until which their events are dropped
+	held []heldEvent // set aside by the clock guard, in position order (clock.go)
+
+	forgotten map[string]int64 // state.ForgetKey(user) → Unix ns (wall) until which their events are dropped
 	erase     map[string]int64 // erased since the last commit (user → until)
 }
 
@@ -175,6 +185,9 @@ func New(store *state.Store, cfg Config, rejects RejectSink, log *slog.Logger) (
 	}
 	tr, err := sessionize.NewTracker(cfg.Tracker)
 	if err != nil {
+		return nil, err
+	}
+	if err := CheckKey(context.Background(), store, cfg.Pseudonyms); err != nil {
 		return nil, err
 	}
 	res := store.Resolutions()
@@ -312,16 +325,20 @@ func (p *Processor) Watermark() (wm, maxSeen int64) {
 // validated then, so it decodes again.
 func (p *Processor) Readmit(ctx context.Context, pos uint64, payload []byte) error {
 	e, err := p.dec.Decode(payload)
-	return p.ReadmitDecoded(pos, &e, err)
+	return p.ReadmitDecoded(pos, payload, &e, err)
 }
 
 // ReadmitDecoded is Readmit for an input decoded by the caller.
-func (p *Processor) ReadmitDecoded(pos uint64, e *event.Event, decodeErr error) error {
+func (p *Processor) ReadmitDecoded(pos uint64, payload []byte, e *event.Event, decodeErr error) error {
 	if decodeErr != nil {
 		return fmt.Errorf("pipeline: buffered input %d no longer decodes (input changed since it was read?): %w", pos, decodeErr)
 	}
 	if p.cfg.Pseudonyms != nil {
 		e.User = p.cfg.Pseudonyms.Pseudonym(e.User)
+	}
+	if p.suspect(e.Time.UnixNano()) {
+		// Held aside when it was read: held again, undecided (see clock.go).
+		return p.hold(pos, e, payload, false)
 	}
 	p.reorder.Readmit(e, pos)
 	return nil
@@ -356,35 +373,19 @@ func (p *Processor) OfferDecoded(ctx context.Context, pos uint64, payload []byte
 		if err := p.reject(pos, re.Reason, re.Error(), payload); err != nil {
 			return err
 		}
-	} else if t := e.Time.UnixNano(); p.reorder.Late(t) {
-		// A late event may still be a plain duplicate of one we applied.
-		c, err := p.user(e.User)
-		if err != nil {
+	} else if r, msg := p.insane(e.Time.UnixNano()); r != "" {
+		if err := p.reject(pos, r, msg, payload); err != nil {
 			return err
 		}
-		if c.u.HasSeen(xxhash.Sum64String(e.ID)) {
-			p.ckpt.Counts.Duplicate++
-		} else {
-			p.ckpt.Counts.Late++
-			msg := fmt.Sprintf("late: event time %s is older than the watermark %s",
-				e.Time.Format(time.RFC3339Nano), time.Unix(0, p.reorder.Watermark()).UTC().Format(time.RFC3339Nano))
-			if err := p.rejectRecord(pos, event.ReasonLate, msg, payload); err != nil {
-				return err
-			}
+	} else if p.suspect(e.Time.UnixNano()) {
+		if err := p.hold(pos, e, payload, true); err != nil {
+			return err
 		}
-	} else {
-		p.reorder.Push(e, pos)
-		if p.cfg.PersistPending {
-			if p.cfg.Pseudonyms != nil {
-				p.pendingNew[pos] = event.AppendJSON(nil, e)
-			} else {
-				p.pendingNew[pos] = append([]byte(nil), payload...)
-			}
-		}
-		if t := e.Time.UnixNano(); t > p.lastEvent {
-			p.lastEvent = t
-		}
-		if err := p.release(); err != nil {
+	} else if err := p.admit(pos, e, payload); err != nil {
+		return err
+	}
+	if len(p.held) > 0 {
+		if err := p.decideHeld(pos+1, false); err != nil {
 			return err
 		}
 	}
@@ -439,6 +440,9 @@ type ForgetReport struct {
 // plus the commit interval from now are dropped (counted as erased), so
 // late copies do not recreate the state. Aggregate counters hold no
 // identifiers and stay. id is the raw id; it is pseudonymised like input.
+// After the commit every version of the person's state is dropped from the
+// store's files (state.Store.EraseUser), and the erasure marker holds only
+// a hash of the id (state.ForgetKey).
 func (p *Processor) Forget(ctx context.Context, id string) (ForgetReport, error) {
 	if p.cfg.Pseudonyms != nil {
 		id = p.cfg.Pseudonyms.Pseudonym(id)
@@ -458,9 +462,17 @@ func (p *Processor) Forget(ctx context.Context, id string) (ForgetReport, error)
 	r.Buffered = p.reorder.CountUser(id)
 	until := time.Now().Add(p.cfg.Lateness + p.cfg.CommitInterval + time.Minute)
 	r.DroppedUntil = until.UTC()
-	p.forgotten[id] = until.UnixNano()
+	p.forgotten[state.ForgetKey(id)] = until.UnixNano()
 	p.erase[id] = until.UnixNano()
-	return r, p.commit(ctx, true)
+	if err := p.commit(ctx, true); err != nil {
+		return r, err
+	}
+	// The deletion is committed; now every version, the deletion marker
+	// included, leaves the disk.
+	if err := p.store.EraseUser(id); err != nil {
+		return r, fmt.Errorf("pipeline: erase %s from disk: %w", id, err)
+	}
+	return r, nil
 }
 
 // forgetPending notes that the buffered event at pos was applied.
@@ -510,12 +522,15 @@ func (p *Processor) Tick(ctx context.Context, now time.Time) error {
 }
 
 func (p *Processor) apply(e *event.Event) error {
-	if until, ok := p.forgotten[e.User]; ok {
-		if time.Now().UnixNano() < until {
-			p.ckpt.Counts.Erased++
-			return nil
+	if len(p.forgotten) > 0 {
+		k := state.ForgetKey(e.User)
+		if until, ok := p.forgotten[k]; ok {
+			if time.Now().UnixNano() < until {
+				p.ckpt.Counts.Erased++
+				return nil
+			}
+			delete(p.forgotten, k)
 		}
-		delete(p.forgotten, e.User)
 	}
 	c, err := p.user(e.User)
 	if err != nil {
@@ -585,6 +600,9 @@ func (p *Processor) needCommit() bool {
 // input is complete) and the source is marked done. It commits and waits.
 func (p *Processor) Finish(ctx context.Context, drain bool) error {
 	if drain {
+		if err := p.decideHeld(p.ckpt.Next, true); err != nil {
+			return err
+		}
 		var ferr error
 		p.reorder.Drain(func(it *sessionize.Item) {
 			if ferr == nil {
@@ -666,7 +684,9 @@ func (p *Processor) commit(ctx context.Context, wait bool) error {
 		Meta:        map[string][]byte{},
 	}
 	for id, until := range p.erase {
-		c.Users[id] = nil // delete
+		// The state itself is dropped right after this commit
+		// (state.Store.EraseUser): a deletion here would leave a marker
+		// holding the key on disk, and hide the key from the drop.
 		if c.Forget == nil {
 			c.Forget = make(map[string]int64)
 		}
@@ -696,7 +716,7 @@ func (p *Processor) commit(ctx context.Context, wait bool) error {
 		p.pendingNew, p.released = make(map[uint64][]byte), nil
 		cp.Pending = nil
 	} else {
-		cp.Pending = p.reorder.Positions(nil)
+		cp.Pending = p.heldPositions(p.reorder.Positions(nil))
 		sort.Slice(cp.Pending, func(i, j int) bool { return cp.Pending[i] < cp.Pending[j] })
 	}
 	cp.Counts = p.ckpt.Counts.clone()
@@ -706,7 +726,7 @@ func (p *Processor) commit(ctx context.Context, wait bool) error {
 	}
 	switch {
 	case p.source == "": // no input begun (an erasure alone): leave the marker as it is
-	case len(cp.Pending) > 0 || (p.cfg.PersistPending && p.reorder.Len() > 0):
+	case len(cp.Pending) > 0 || (p.cfg.PersistPending && p.reorder.Len() > 0) || len(p.held) > 0:
 		c.Meta[metaOpen] = []byte(p.source)
 	default:
 		c.Meta[metaOpen] = []byte{}

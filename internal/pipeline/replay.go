@@ -59,7 +59,7 @@ func Replay(ctx context.Context, p *Processor, source string, r io.Reader, maxPa
 			it := &c.items[i]
 			payload := c.buf[it.off:it.end]
 			if it.readmit {
-				err = p.ReadmitDecoded(it.pos, &it.ev, it.err)
+				err = p.ReadmitDecoded(it.pos, payload, &it.ev, it.err)
 			} else {
 				err = p.OfferDecoded(ctx, it.pos, payload, &it.ev, it.err)
 			}

@@ -40,6 +40,8 @@ func FromConfig(c config.Config) Config {
 		CacheUsers:     c.Store.CacheUsers,
 		CommitEvents:   c.Store.CommitEvents,
 		CommitInterval: c.Store.CommitInterval.D(),
+		MaxFuture:      c.Clock.MaxFuture.D(),
+		MaxJump:        c.Clock.MaxJump.D(),
 	}
 }
 

@@ -75,6 +75,22 @@ func (p *Pseudonymizer) Pseudonym(id string) string {
 	return p.prefix + hex.EncodeToString(m.Sum(sum[:0]))
 }
 
+// fingerprintLabel is what Fingerprint authenticates: a fixed label, so
+// the fingerprint names the key without being the pseudonym of any id a
+// publisher could send.
+const fingerprintLabel = "touchledger key fingerprint\x00v1"
+
+// Fingerprint identifies the key: hex of the first 16 bytes of
+// HMAC-SHA256(key, fixed label). A data directory records it, so a
+// missing or different key is refused (the key cannot be recovered from
+// it: HMAC is a pseudorandom function, RFC 2104).
+func (p *Pseudonymizer) Fingerprint() string {
+	m := hmac.New(sha256.New, p.key)
+	m.Write([]byte(fingerprintLabel))
+	var sum [sha256.Size]byte
+	return hex.EncodeToString(m.Sum(sum[:0])[:16])
+}
+
 // Version returns the key version.
 func (p *Pseudonymizer) Version() int { return p.version }
 

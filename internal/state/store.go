@@ -2,7 +2,9 @@ package state
 
 import (
 	"context"
+	"crypto/sha256"
 	"encoding/binary"
+	"encoding/hex"
 	"errors"
 	"fmt"
 	"log/slog"
@@ -12,6 +14,7 @@ import (
 	"time"
 
 	"github.com/dgraph-io/badger/v4"
+	"github.com/dgraph-io/badger/v4/options"
 	"github.com/dgraph-io/ristretto/v2/z"
 
 	"github.com/touchledger/touchledger/internal/tally"
@@ -106,6 +109,10 @@ func Open(ctx context.Context, o Options) (*Store, error) {
 		s.db.Close()
 		return nil, err
 	}
+	if err := s.restoreJournal(false); err != nil {
+		s.db.Close()
+		return nil, err
+	}
 	r := s.NewReader()
 	defer r.Discard()
 	b, err := r.Meta(metaSeq)
@@ -139,16 +146,30 @@ func openRaw(o Options) (*Store, error) {
 		WithDetectConflicts(false).
 		WithNumVersionsToKeep(1).
 		WithMetricsEnabled(false).
-		WithLogger(badgerLogger{o.Logger})
-	db, err := badger.Open(bo)
+		WithLogger(badgerLogger{o.Logger}).
+		// Corruption is refused, never read: every table's checksums are
+		// checked before Badger opens (checkFiles), every block's when read,
+		// every value's.
+		WithChecksumVerificationMode(options.OnBlockRead).
+		WithVerifyValueChecksum(true)
+	if err := lockFree(o.Dir); err != nil {
+		return nil, err
+	}
+	if err := checkFiles(o.Dir); err != nil {
+		return nil, err
+	}
+	db, err := openBadger(bo)
 	if err != nil && strings.Contains(err.Error(), z.NewFile.Error()) { // Badger wraps without %w
 		// A process killed right after Badger created a memtable file leaves
 		// that file empty, and the next Open fails with z.NewFile; Open has
 		// then set the file up and a second Open succeeds (Badger issue
 		// #2207, open as of v4.9). Our kill -9 test hits this.
-		db, err = badger.Open(bo)
+		db, err = openBadger(bo)
 	}
 	if err != nil {
+		if errors.Is(err, ErrCorrupt) {
+			return nil, fmt.Errorf("state: open %s: %w", o.Dir, err)
+		}
 		if errors.Is(err, badger.ErrTruncateNeeded) {
 			return nil, fmt.Errorf("state: open %s: %w", o.Dir, err)
 		}
@@ -357,7 +378,7 @@ func (s *Store) Commit(ctx context.Context, c *Commit) (CommitStats, error) {
 		}
 	}
 	for id, until := range c.Forget {
-		e := badger.NewEntry(append([]byte{prefixForgotten}, id...), binary.AppendVarint(nil, until))
+		e := badger.NewEntry(append([]byte{prefixForgotten}, ForgetKey(id)...), binary.AppendVarint(nil, until))
 		if ttl := time.Until(time.Unix(0, until)); ttl > 0 {
 			e = e.WithTTL(ttl + time.Minute)
 		}
@@ -576,9 +597,10 @@ func (r *Reader) Pending(source string, fn func(pos uint64, payload []byte) erro
 	return nil
 }
 
-// Forgotten calls fn for every erasure marker still alive: a user erased
-// recently, with the Unix ns time until which their events are dropped.
-func (r *Reader) Forgotten(fn func(id string, until int64) error) error {
+// Forgotten calls fn for every erasure marker still alive: the ForgetKey
+// of a user erased recently, with the Unix ns time until which their
+// events are dropped.
+func (r *Reader) Forgotten(fn func(key string, until int64) error) error {
 	opts := badger.DefaultIteratorOptions
 	opts.Prefix = []byte{prefixForgotten}
 	it := r.txn.NewIterator(opts)
@@ -611,6 +633,41 @@ func (r *Reader) Users(fn func(id string) error) error {
 	defer it.Close()
 	for it.Rewind(); it.Valid(); it.Next() {
 		if err := fn(string(it.Item().Key()[1:])); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// MetaPrefix returns every meta entry whose name starts with prefix, by name.
+func (r *Reader) MetaPrefix(prefix string) (map[string][]byte, error) {
+	opts := badger.DefaultIteratorOptions
+	opts.Prefix = metaKey(prefix)
+	it := r.txn.NewIterator(opts)
+	defer it.Close()
+	out := map[string][]byte{}
+	for it.Rewind(); it.Valid(); it.Next() {
+		v, err := it.Item().ValueCopy(nil)
+		if err != nil {
+			return nil, fmt.Errorf("state: meta: %w", err)
+		}
+		out[string(it.Item().Key()[1:])] = v
+	}
+	return out, nil
+}
+
+// Checkpoints calls fn for every committed source and its checkpoint.
+func (r *Reader) Checkpoints(fn func(source string, cp []byte) error) error {
+	opts := badger.DefaultIteratorOptions
+	opts.Prefix = []byte{prefixCheckpoint}
+	it := r.txn.NewIterator(opts)
+	defer it.Close()
+	for it.Rewind(); it.Valid(); it.Next() {
+		v, err := it.Item().ValueCopy(nil)
+		if err != nil {
+			return fmt.Errorf("state: checkpoint: %w", err)
+		}
+		if err := fn(string(it.Item().Key()[1:]), v); err != nil {
 			return err
 		}
 	}
@@ -731,6 +788,15 @@ func (s *Store) Prune(ctx context.Context, latest int64, limit int) (PruneReport
 	}
 	rep.Buckets = len(prefixes)
 	return rep, nil
+}
+
+// ForgetKey is what an erasure marker is stored under: the first 128 bits
+// of SHA-256(id) in hex, so the marker that drops a person's late events
+// does not keep their id (or pseudonym) on disk. Reader.Forgotten returns
+// these keys.
+func ForgetKey(id string) string {
+	h := sha256.Sum256([]byte(id))
+	return hex.EncodeToString(h[:16])
 }
 
 // ReclaimSpace flattens the LSM tree and runs value-log GC until it finds

@@ -1,6 +1,7 @@
 package stream
 
 import (
+	"bytes"
 	"context"
 	"encoding/json"
 	"errors"
@@ -37,6 +38,7 @@ type ForgetReply struct {
 	Partition              int    `json:"partition"`              // the person's partition (PartitionOf)
 	Owner                  bool   `json:"owner"`                  // Partition is in Partitions
 	Purged                 uint64 `json:"purged"`                 // the person's messages deleted from the events stream
+	PurgedDead             uint64 `json:"purged_dead"`            // the person's dead letters erased
 	PurgeFilter            string `json:"purge_filter,omitempty"` // the subject filter of the purge (owner only)
 	Error                  string `json:"error,omitempty"`
 }
@@ -62,39 +64,106 @@ func (c Config) UserFilter(user string) string {
 	return c.Prefix + ".ev.*.*." + UserKey(user)
 }
 
-// PurgeUser deletes the user's messages from the events stream with a
-// subject-filtered purge (UserFilter) and returns how many it deleted.
-// Messages the worker has not read yet are simply never delivered; the
-// consumer's delivery sequence stays gapless.
+// PurgeUser erases the user's messages from the events stream, each with
+// a secure delete (the server overwrites the message in its block file
+// with random bytes, so the person's payload does not stay on disk as a
+// subject purge leaves it), and returns how many it erased. Messages the
+// worker has not read yet are simply never delivered.
 func PurgeUser(ctx context.Context, js jetstream.JetStream, cfg Config, user string) (uint64, error) {
-	body, err := json.Marshal(map[string]string{"filter": cfg.UserFilter(user)})
+	s, err := js.Stream(ctx, cfg.Stream)
 	if err != nil {
-		return 0, err
+		return 0, fmt.Errorf("erase from %s: %w", cfg.Stream, err)
 	}
-	// The purge count is in the API's reply, which jetstream's Purge drops:
-	// ask the API directly.
-	m, err := js.Conn().RequestWithContext(ctx, apiPrefix(js)+"STREAM.PURGE."+cfg.Stream, body)
+	seqs, err := matching(ctx, s, cfg.UserFilter(user), nil)
 	if err != nil {
-		return 0, fmt.Errorf("purge %s: %w", cfg.Stream, err)
+		return 0, fmt.Errorf("erase from %s: %w", cfg.Stream, err)
 	}
-	var r struct {
-		Success bool   `json:"success"`
-		Purged  uint64 `json:"purged"`
-		Error   *struct {
-			Code        int    `json:"code"`
-			Description string `json:"description"`
-		} `json:"error"`
+	return secureDelete(ctx, s, seqs)
+}
+
+// PurgeDeadLetters erases the user's dead letters (secure delete): those
+// whose Tl-Subject header carries the user's subject key (subjectUser is
+// what the key is computed from: the id or its pseudonym), and those whose
+// payload names the user (raw id, when no key redacts the payloads).
+func PurgeDeadLetters(ctx context.Context, js jetstream.JetStream, cfg Config, rawUser, subjectUser string) (uint64, error) {
+	s, err := js.Stream(ctx, cfg.DeadStream)
+	if err != nil {
+		return 0, fmt.Errorf("erase from %s: %w", cfg.DeadStream, err)
 	}
-	if err := json.Unmarshal(m.Data, &r); err != nil {
-		return 0, fmt.Errorf("purge %s: reply: %w", cfg.Stream, err)
+	key := "." + UserKey(subjectUser)
+	quoted, _ := json.Marshal(rawUser)
+	seqs, err := matching(ctx, s, cfg.DeadSubjects(), func(m jetstream.Msg) bool {
+		if strings.HasSuffix(m.Headers().Get(HeaderSubject), key) {
+			return true
+		}
+		var body struct {
+			User *string `json:"user"`
+		}
+		if json.Unmarshal(m.Data(), &body) == nil {
+			return body.User != nil && *body.User == rawUser
+		}
+		return bytes.Contains(m.Data(), quoted) // not JSON: the id quoted anywhere
+	})
+	if err != nil {
+		return 0, fmt.Errorf("erase from %s: %w", cfg.DeadStream, err)
 	}
-	if r.Error != nil {
-		return 0, fmt.Errorf("purge %s: %s (%d)", cfg.Stream, r.Error.Description, r.Error.Code)
+	return secureDelete(ctx, s, seqs)
+}
+
+// matching returns the sequences of the stream's messages on filter for
+// which keep holds (every one when keep is nil): those stored when it is
+// called, read with an ordered consumer.
+func matching(ctx context.Context, s jetstream.Stream, filter string, keep func(jetstream.Msg) bool) ([]uint64, error) {
+	info, err := s.Info(ctx, jetstream.WithSubjectFilter(filter))
+	if err != nil {
+		return nil, err
 	}
-	if !r.Success {
-		return 0, fmt.Errorf("purge %s: not successful", cfg.Stream)
+	var total uint64
+	for _, c := range info.State.Subjects {
+		total += c
 	}
-	return r.Purged, nil
+	if total == 0 {
+		return nil, nil
+	}
+	oc, err := s.OrderedConsumer(ctx, jetstream.OrderedConsumerConfig{FilterSubjects: []string{filter}})
+	if err != nil {
+		return nil, err
+	}
+	var seqs []uint64
+	for read := uint64(0); read < total; {
+		batch, err := oc.Fetch(int(min(total-read, 1024)), jetstream.FetchMaxWait(5*time.Second))
+		if err != nil {
+			return nil, err
+		}
+		got := 0
+		for m := range batch.Messages() {
+			got++
+			md, err := m.Metadata()
+			if err != nil {
+				return nil, err
+			}
+			if keep == nil || keep(m) {
+				seqs = append(seqs, md.Sequence.Stream)
+			}
+		}
+		if got == 0 {
+			return nil, fmt.Errorf("read %d of the %d messages on %s: %w", read, total, filter, batch.Error())
+		}
+		read += uint64(got)
+	}
+	return seqs, nil
+}
+
+// secureDelete erases each sequence; one already gone counts as erased.
+func secureDelete(ctx context.Context, s jetstream.Stream, seqs []uint64) (uint64, error) {
+	var n uint64
+	for _, seq := range seqs {
+		if err := s.SecureDeleteMsg(ctx, seq); err != nil && !errors.Is(err, jetstream.ErrMsgNotFound) {
+			return n, fmt.Errorf("secure delete %d: %w", seq, err)
+		}
+		n++
+	}
+	return n, nil
 }
 
 // apiPrefix is the JetStream API prefix js sends requests under.
@@ -183,6 +252,13 @@ func (w *Worker) serveForget(data []byte) ForgetReply {
 			rep.Error = fmt.Sprintf("state erased, but the stream purge failed (send the request again): %v", err)
 		}
 		rep.Purged = n
+		if err == nil {
+			d, err := PurgeDeadLetters(ctx, w.js, w.cfg, req.User, su)
+			if err != nil {
+				rep.Error = fmt.Sprintf("state and stream erased, but the dead-letter purge failed (send the request again): %v", err)
+			}
+			rep.PurgedDead = d
+		}
 	}
 	return rep
 }

@@ -26,6 +26,10 @@ type ConnectOptions struct {
 	CAFile    string // TLS: CA certificates to trust
 	CertFile  string // TLS: client certificate (with KeyFile)
 	KeyFile   string
+	// NoReconnect: the connection closes on the first loss instead of
+	// reconnecting by itself (Send then dials a new one and re-publishes
+	// in order; see SendOptions.Dial).
+	NoReconnect bool
 }
 
 // Validate checks that the options are complete and not contradictory.
@@ -51,8 +55,8 @@ func (o ConnectOptions) Validate() error {
 	return nil
 }
 
-// Connect connects with o. It reconnects forever after a connection loss,
-// logging disconnections and reconnections to log.
+// Connect connects with o. Unless o.NoReconnect, it reconnects forever
+// after a connection loss, logging disconnections and reconnections to log.
 func Connect(o ConnectOptions, log *slog.Logger) (*nats.Conn, error) {
 	if err := o.Validate(); err != nil {
 		return nil, err
@@ -81,6 +85,9 @@ func Connect(o ConnectOptions, log *slog.Logger) (*nats.Conn, error) {
 			}
 			log.Warn("nats error", "subject", subj, "err", err)
 		}),
+	}
+	if o.NoReconnect {
+		opts = append(opts, nats.NoReconnect())
 	}
 	switch {
 	case o.User != "" || o.Password != "":

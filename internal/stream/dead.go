@@ -42,8 +42,15 @@ type DeadLetters struct {
 	seq     uint64 // the message being offered
 	subject string
 
-	pending   []inflight
+	pending   []deadPending
 	published int64
+}
+
+// deadPending is a dead letter published and not yet acknowledged.
+type deadPending struct {
+	f   jetstream.PubAckFuture
+	msg *nats.Msg
+	id  string
 }
 
 // maxDeadPending bounds the unacknowledged dead letters: Reject waits for
@@ -88,7 +95,7 @@ func (d *DeadLetters) Reject(pos uint64, reason event.Reason, msg string, payloa
 	if err != nil {
 		return d.publishSync(m, id, err)
 	}
-	d.pending = append(d.pending, inflight{f: f, msg: m, id: id})
+	d.pending = append(d.pending, deadPending{f: f, msg: m, id: id})
 	return nil
 }
 

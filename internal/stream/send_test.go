@@ -5,6 +5,7 @@ import (
 	"compress/gzip"
 	"context"
 	"errors"
+	"fmt"
 	"net"
 	"strconv"
 	"strings"
@@ -138,7 +139,7 @@ func TestSendWithoutStreamFails(t *testing.T) {
 	ctx, cancel := context.WithTimeout(context.Background(), 20*time.Second)
 	defer cancel()
 	_, err = Send(ctx, b.js, strings.NewReader(`{"id":"a","user":"u","time":"2026-10-01T00:00:00Z","kind":"action","action":"x"}`),
-		SendOptions{Retries: 1, AckTimeout: time.Second})
+		SendOptions{RetryFor: 2 * time.Second, AckTimeout: time.Second})
 	if !errors.Is(err, ErrSendAborted) {
 		t.Fatalf("Send without a stream: %v, want ErrSendAborted", err)
 	}
@@ -181,4 +182,90 @@ func TestSendSubjectUser(t *testing.T) {
 	if f := c.UserFilter(c.SubjectUser("ann")); !strings.HasSuffix(f, UserKey(pseudo("ann"))) {
 		t.Errorf("erasure filter %s does not use the pseudonym's key", f)
 	}
+}
+
+// TestSendOrderAcrossRestarts restarts the server three times while Send
+// publishes through Dial with connections that do not reconnect by
+// themselves: every line must be in the stream, and the first copy of each
+// in input order (issue 9: failed publications were re-sent behind newer
+// ones, so the worker rejected them as late).
+func TestSendOrderAcrossRestarts(t *testing.T) {
+	cfg := DefaultConfig()
+	dir := t.TempDir()
+	ln, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	port := ln.Addr().(*net.TCPAddr).Port
+	ln.Close()
+	start := func() (stop func()) {
+		t.Helper()
+		srv, _, err := StartEmbedded(dir, EmbedPort(port), EmbedConfig(cfg))
+		if err != nil {
+			t.Fatal(err)
+		}
+		return func() { srv.Shutdown(); srv.WaitForShutdown() }
+	}
+	stop := start()
+	url := "nats://127.0.0.1:" + strconv.Itoa(port)
+	nc, js := connectJS(t, url)
+	if err := EnsureStream(context.Background(), js, cfg); err != nil {
+		t.Fatal(err)
+	}
+	nc.Close()
+
+	const n = 12000
+	var in strings.Builder
+	for i := range n {
+		fmt.Fprintf(&in, `{"id":"e%d","user":"u%d","time":"2026-10-01T00:00:00Z","kind":"action","action":"x"}`+"\n", i, i%97)
+	}
+	dial := func(context.Context) (jetstream.JetStream, error) {
+		nc, err := Connect(ConnectOptions{URL: url, NoReconnect: true}, nil)
+		if err != nil {
+			return nil, err
+		}
+		return jetstream.New(nc)
+	}
+	type result struct {
+		st  SendStats
+		err error
+	}
+	done := make(chan result, 1)
+	go func() {
+		st, err := Send(context.Background(), nil, strings.NewReader(in.String()), SendOptions{Rate: 6000, Dial: dial, RetryFor: 30 * time.Second})
+		done <- result{st, err}
+	}()
+	for range 3 {
+		time.Sleep(500 * time.Millisecond)
+		stop()
+		time.Sleep(300 * time.Millisecond)
+		stop = start()
+	}
+	r := <-done
+	defer stop()
+	if r.err != nil {
+		t.Fatal(r.err)
+	}
+	if r.st.Rewinds == 0 || r.st.Lines != n || r.st.Delivered != n {
+		t.Fatalf("stats %+v: want rewinds, %d lines delivered", r.st, n)
+	}
+	nc, js = connectJS(t, url)
+	defer nc.Close()
+	_, ids, _ := storedSubjects(t, &bus{url: url, nc: nc, js: js, cfg: cfg})
+	seen := map[string]bool{}
+	next := 0
+	for _, id := range ids {
+		if seen[id] {
+			continue
+		}
+		seen[id] = true
+		if want := "e" + strconv.Itoa(next); id != want {
+			t.Fatalf("message %d of the stream is %s, want %s (input order)", next, id, want)
+		}
+		next++
+	}
+	if next != n {
+		t.Errorf("%d distinct lines stored, want %d", next, n)
+	}
+	t.Logf("%d lines, %d stored messages, %d rewinds, %d publications repeated", n, len(ids), r.st.Rewinds, r.st.Retried)
 }
