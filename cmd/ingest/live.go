@@ -153,7 +153,7 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 	if err != nil {
 		return err
 	}
-	if err := ensureStream(ctx, js, l.scfg, log); err != nil {
+	if err := stream.EnsureStreamRetry(ctx, js, l.scfg, log); err != nil {
 		return err
 	}
 
@@ -254,25 +254,7 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 	defer admin.Unsubscribe()
 
 	// Retention: expired buckets leave the store (and the disk) on schedule.
-	if l.maintenance > 0 {
-		go func() {
-			t := time.NewTicker(l.maintenance)
-			defer t.Stop()
-			for {
-				select {
-				case <-ctx.Done():
-					return
-				case <-t.C:
-					rep, err := w.Maintain(ctx, st.ReclaimSpace)
-					if err != nil {
-						log.Warn("maintenance", "error", err)
-						continue
-					}
-					log.Info("maintenance", "buckets_dropped", rep.Buckets)
-				}
-			}
-		}()
-	}
+	go w.MaintainEvery(ctx, l.maintenance, st.ReclaimSpace)
 
 	// Feeds: alert transitions and credit snapshots, from store snapshots
 	// on their own goroutine. The start rule looks at the committed data
@@ -320,29 +302,6 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 	fmt.Fprintf(stdout, "stopped: accepted %d, duplicate %d, rejected %d, late %d, buffered %d (ran %s)\n",
 		c.Accepted, c.Duplicate, c.RejectedTotal(), c.Late, s.Buffered, time.Since(start).Round(time.Second))
 	return nil
-}
-
-// ensureStream creates or updates the streams, retrying for up to
-// stream.StartRetry while a cluster elects its JetStream leader (requests
-// then fail with "not available" or time out).
-func ensureStream(ctx context.Context, js jetstream.JetStream, cfg stream.Config, log *slog.Logger) error {
-	deadline := time.Now().Add(stream.StartRetry)
-	wait := 200 * time.Millisecond
-	for {
-		sctx, cancel := context.WithTimeout(ctx, 10*time.Second)
-		err := stream.EnsureStream(sctx, js, cfg)
-		cancel()
-		if err == nil || ctx.Err() != nil || time.Now().After(deadline) {
-			return err
-		}
-		log.Warn("creating the streams; retrying", "err", err, "in", wait)
-		select {
-		case <-time.After(wait):
-		case <-ctx.Done():
-			return ctx.Err()
-		}
-		wait = min(2*wait, 5*time.Second)
-	}
 }
 
 // drain flushes the connection (the last acknowledgements) and closes it.

@@ -116,6 +116,33 @@ func Connect(o ConnectOptions, log *slog.Logger) (*nats.Conn, error) {
 	return nc, nil
 }
 
+// EnsureStreamRetry is EnsureStream retried for up to StartRetry while a
+// cluster elects its JetStream leader (requests then fail with "not
+// available" or time out), waiting 200 ms, doubling up to 5 s, between
+// tries. Each try has 10 s.
+func EnsureStreamRetry(ctx context.Context, js jetstream.JetStream, cfg Config, log *slog.Logger) error {
+	if log == nil {
+		log = slog.New(slog.DiscardHandler)
+	}
+	deadline := time.Now().Add(StartRetry)
+	wait := 200 * time.Millisecond
+	for {
+		sctx, cancel := context.WithTimeout(ctx, 10*time.Second)
+		err := EnsureStream(sctx, js, cfg)
+		cancel()
+		if err == nil || ctx.Err() != nil || time.Now().After(deadline) {
+			return err
+		}
+		log.Warn("creating the streams; retrying", "err", err, "in", wait)
+		select {
+		case <-time.After(wait):
+		case <-ctx.Done():
+			return ctx.Err()
+		}
+		wait = min(2*wait, 5*time.Second)
+	}
+}
+
 // EnsureStream creates the events stream (subjects <prefix>.ev.>) and the
 // dead-letter stream (<prefix>.dead.>), or updates them to cfg: file
 // storage, limits retention, cfg's replicas, max age and de-duplication

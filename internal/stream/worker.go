@@ -320,6 +320,32 @@ func (w *Worker) Maintain(ctx context.Context, reclaim func() error) (state.Prun
 	return rep, reclaim()
 }
 
+// MaintainEvery runs Maintain every interval until ctx ends or Run stops
+// (the live worker's retention schedule; interval <= 0 returns at once).
+// Failures are logged and retried at the next tick.
+func (w *Worker) MaintainEvery(ctx context.Context, interval time.Duration, reclaim func() error) {
+	if interval <= 0 {
+		return
+	}
+	t := time.NewTicker(interval)
+	defer t.Stop()
+	for {
+		select {
+		case <-ctx.Done():
+			return
+		case <-w.stopped:
+			return
+		case <-t.C:
+			rep, err := w.Maintain(ctx, reclaim)
+			if err != nil {
+				w.log.Warn("maintenance", "error", err)
+				continue
+			}
+			w.log.Info("maintenance", "buckets_dropped", rep.Buckets)
+		}
+	}
+}
+
 // ErrWorkerStopped is returned by Forget when Run has ended.
 var ErrWorkerStopped = errors.New("stream: the worker has stopped")
 
