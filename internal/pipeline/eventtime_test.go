@@ -84,3 +84,55 @@ func TestQuietInputKeepsLatestEvent(t *testing.T) {
 		t.Errorf("the last day shown has no conversions: %+v", days[len(days)-1])
 	}
 }
+
+// TestInjectedClock: the processor's wall clock is Config.Now: a commit
+// falls due when the injected clock has passed the commit interval, not
+// the real one (this project's rule: commit by size or time).
+func TestInjectedClock(t *testing.T) {
+	lines := strings.Split(strings.TrimSpace(string(demoInput(t, 20, 1))), "\n")
+	ctx := context.Background()
+	st, err := state.Open(ctx, state.DefaultOptions(t.TempDir()))
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer st.Close()
+	now := time.Date(2026, 12, 1, 0, 0, 0, 0, time.UTC)
+	cfg := testConfig()
+	cfg.PersistPending = true
+	cfg.CommitInterval = time.Hour
+	cfg.Now = func() time.Time { return now }
+	p, err := New(st, cfg, nil, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer p.Close()
+	if _, err := p.Begin("bus"); err != nil {
+		t.Fatal(err)
+	}
+	for i, l := range lines {
+		if err := p.Offer(ctx, uint64(i+1), []byte(l)); err != nil {
+			t.Fatal(err)
+		}
+	}
+	now = now.Add(59 * time.Minute)
+	if err := p.Tick(ctx, now); err != nil {
+		t.Fatal(err)
+	}
+	if c := p.Status().Commits; c != 0 {
+		t.Fatalf("%d commits 59 injected minutes after the start, want 0 (interval 1h)", c)
+	}
+	now = now.Add(2 * time.Minute)
+	if err := p.Tick(ctx, now); err != nil {
+		t.Fatal(err)
+	}
+	deadline := time.Now().Add(10 * time.Second)
+	for p.Status().Commits == 0 {
+		if time.Now().After(deadline) {
+			t.Fatal("no commit once the injected clock passed the commit interval")
+		}
+		time.Sleep(5 * time.Millisecond)
+	}
+	if got := p.Status().LastCommit; !got.Equal(now) {
+		t.Errorf("last commit at %s, want the injected clock's %s", got, now)
+	}
+}

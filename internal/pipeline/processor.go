@@ -54,7 +54,9 @@ type Config struct {
 	Pseudonyms *privacy.Pseudonymizer
 	// Now, if set, is the wall clock of live input: events more than
 	// MaxFuture ahead of it are rejected as future. Replay leaves it nil
-	// and guards event time with MaxJump instead (see clock.go).
+	// and guards event time with MaxJump instead (see clock.go). It is
+	// also the processor's clock for commit intervals, arrival times and
+	// erasure windows (time.Now when nil).
 	Now       func() time.Time
 	MaxFuture time.Duration // 0 disables
 	MaxJump   time.Duration // 0 disables
@@ -271,7 +273,7 @@ func (p *Processor) Begin(source string) (Checkpoint, error) {
 			return Checkpoint{}, fmt.Errorf("pipeline: source %q: %w", source, err)
 		}
 	}
-	p.lastCommit = time.Now()
+	p.lastCommit = p.now()
 	cp := p.ckpt
 	cp.Pending = append([]uint64(nil), p.ckpt.Pending...)
 	p.ckpt.Done = false
@@ -389,7 +391,7 @@ func (p *Processor) OfferDecoded(ctx context.Context, pos uint64, payload []byte
 			return err
 		}
 	}
-	p.lastArrival = time.Now()
+	p.lastArrival = p.now()
 	p.sinceCommit++
 	if p.needCommit() {
 		return p.commit(ctx, false)
@@ -460,7 +462,7 @@ func (p *Processor) Forget(ctx context.Context, id string) (ForgetReport, error)
 	delete(p.cur, id)
 	delete(p.prev, id)
 	r.Buffered = p.reorder.CountUser(id)
-	until := time.Now().Add(p.cfg.Lateness + p.cfg.CommitInterval + time.Minute)
+	until := p.now().Add(p.cfg.Lateness + p.cfg.CommitInterval + time.Minute)
 	r.DroppedUntil = until.UTC()
 	p.forgotten[state.ForgetKey(id)] = until.UnixNano()
 	p.erase[id] = until.UnixNano()
@@ -490,6 +492,14 @@ func (p *Processor) forgetPending(pos uint64) {
 	}
 }
 
+// now is the processor's wall clock: Config.Now, else time.Now.
+func (p *Processor) now() time.Time {
+	if p.cfg.Now != nil {
+		return p.cfg.Now()
+	}
+	return time.Now()
+}
+
 // Tick lets event time advance with the wall clock while the input is quiet:
 // the watermark rises as if an event at lastEvent + (now − last arrival),
 // never beyond now, had arrived, so a partition that receives nothing still
@@ -515,7 +525,7 @@ func (p *Processor) Tick(ctx context.Context, now time.Time) error {
 			return err
 		}
 	}
-	if (p.sinceCommit > 0 || p.batch.Len() > 0 || len(p.released) > 0) && time.Since(p.lastCommit) >= p.cfg.CommitInterval {
+	if (p.sinceCommit > 0 || p.batch.Len() > 0 || len(p.released) > 0) && p.now().Sub(p.lastCommit) >= p.cfg.CommitInterval {
 		return p.commit(ctx, false)
 	}
 	return nil
@@ -525,7 +535,7 @@ func (p *Processor) apply(e *event.Event) error {
 	if len(p.forgotten) > 0 {
 		k := state.ForgetKey(e.User)
 		if until, ok := p.forgotten[k]; ok {
-			if time.Now().UnixNano() < until {
+			if p.now().UnixNano() < until {
 				p.ckpt.Counts.Erased++
 				return nil
 			}
@@ -590,7 +600,7 @@ func (p *Processor) needCommit() bool {
 		p.dirtyBytes+48*keys >= p.maxBytes {
 		return true
 	}
-	if p.sinceCommit&1023 == 0 && time.Since(p.lastCommit) >= p.cfg.CommitInterval {
+	if p.sinceCommit&1023 == 0 && p.now().Sub(p.lastCommit) >= p.cfg.CommitInterval {
 		return true
 	}
 	return false
@@ -746,7 +756,7 @@ func (p *Processor) commit(ctx context.Context, wait bool) error {
 	p.sinceCommit = 0
 	p.ndirty = 0
 	p.dirtyBytes = 0
-	p.lastCommit = time.Now()
+	p.lastCommit = p.now()
 	ch := make(chan error, 1)
 	p.inflight = ch
 	source, buffered := p.source, p.reorder.Len()
@@ -757,7 +767,7 @@ func (p *Processor) commit(ctx context.Context, wait bool) error {
 			p.log.Debug("committed", "entries", st.Entries, "bytes", st.Bytes, "took", st.Took)
 			p.mu.Lock()
 			p.status = Status{Source: source, Counts: cp.Counts, Next: cp.Next, Commits: p.status.Commits + 1,
-				LastCommit: time.Now(), CommitTook: st.Took, Buffered: buffered}
+				LastCommit: p.now(), CommitTook: st.Took, Buffered: buffered}
 			if wm != minInt64 {
 				p.status.Watermark = time.Unix(0, wm).UTC()
 			}
