@@ -6,14 +6,16 @@
 //
 // # Charts and the answers they come from
 //
-//	credit per channel per day     Querier.Shift(model, 1, days)              LineChart
-//	all models side by side        Querier.Credit(m, "channel", 1, last) ∀ m  DotPlot (with Options.Truth:
+// Every chart is one query.Request asked through Querier.Answer (Fetch):
+//
+//	credit per channel per day     {shift, model, days}                       LineChart
+//	all models side by side        {credit, m, last} ∀ m                      DotPlot (with Options.Truth:
 //	                               (and query.Scorecard with a truth)         the true share as a ring)
-//	where journeys go next         Querier.Transitions("channel", 1, last)    Heatmap
-//	where sessions go next         Querier.Transitions("action", 0, last),    NextSteps
-//	                               Querier.Paths("action", MainPaths, last)   (paths: the summary)
-//	funnel and step abandonment    Querier.Funnel(last)                       FunnelChart
-//	abandonment over time          Querier.Alerts(last, true)                 ControlChart (whole window, and Zoom:
+//	where journeys go next         {transitions, level channel, last}         Heatmap
+//	where sessions go next         {transitions, level action, last},         NextSteps
+//	                               {paths, level action, top MainPaths, last} (paths: the summary)
+//	funnel and step abandonment    {funnel, last}                             FunnelChart
+//	abandonment over time          {alerts, points, last}                     ControlChart (whole window, and Zoom:
 //	                                                                          the latest alert ± 4 h, else the last day)
 //
 // Every chart has an accessible name and description (<title>, <desc>,

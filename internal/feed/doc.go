@@ -40,7 +40,7 @@
 //
 // # Exactly once per transition
 //
-// Whenever settled moves, the feed evaluates the chart (query.Querier.Alerts
+// Whenever settled moves, the feed evaluates the chart (a query.Request of kind alerts
 // over [settled − Lookback, settled), warmed up over the alert baseline
 // before it) and compares it with the last published state of the alert: the
 // alert it announced as open, and the opening time of the latest alert whose
@@ -75,7 +75,7 @@
 //
 // Every ReportInterval (default 1 minute; 0 disables) the feed publishes
 // one CreditMessage per model (default every model) with
-// query.Querier.Credit(model, by channel, Span{Last: ReportWindow}) —
+// query.Request{Kind: credit, Model: model, Window: Span{Last: ReportWindow}} —
 // the answer of `query credit --model M --last WINDOW --format json` on the
 // worker's data at that moment.
 package feed

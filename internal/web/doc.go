@@ -21,18 +21,22 @@
 //
 // window is last=7d (a duration ending at the latest event) or from=T&to=T
 // (RFC 3339 times or dates, to exclusive); none means the last 30 days.
-// order is the Markov order, 1 to markov_max_order (default 1). These are
-// the options of the query command with the same defaults, so an answer's
-// JSON is byte for byte what `query <command> --format json` prints for the
-// same data, and its CSV what `--format csv` prints: the handler calls the
-// same query.Querier method and query.Write* formatter.
+// order is the Markov order, 1 to markov_max_order (default 1; the markov
+// model and channel transitions only). The parameters of each endpoint are
+// query.Kind.Params: the handler turns them into a query.Request with
+// query.ParseRequest, asks query.Querier.Answer and writes it with
+// query.Render — the parser, entry point and renderer the query command
+// uses — so an answer's JSON is byte for byte what `query <command> --format
+// json` prints for the same data, its CSV what `--format csv` prints, and a
+// refusal's message what `query` prints.
 //
 // Format: ?format=json|csv wins; otherwise the Accept header's preference
 // between application/json and text/csv; otherwise JSON.
 //
-// Errors are JSON {"error": "..."}: 400 for a bad, unknown or repeated
-// parameter (checked before any data is read, so a misspelt name never falls
-// back to a default), 503 when nothing has been ingested yet
+// Errors are JSON {"error": "..."}: 400 for a bad, unknown, inapplicable or
+// repeated parameter (a query.ParamError, message naming the parameter; an
+// unknown name never falls back to a default), 503 when nothing has been
+// ingested yet
 // (query.ErrNoData), 500 otherwise (logged).
 //
 // Access: DefaultAddr is loopback. CheckListen refuses a non-loopback
@@ -40,7 +44,4 @@
 // but /healthz requires "Authorization: Bearer <token>" (401 otherwise;
 // compared in constant time). The answers are aggregates over people's
 // behaviour: keep them on the machine or behind the token.
-//
-// ParseSpan and ParseTime read windows (last, from, to); cmd/query reads its
-// --last/--from/--to flags with them too, so both follow one set of rules.
 package web
