@@ -1,7 +1,6 @@
 package main
 
 import (
-	"bytes"
 	"context"
 	"encoding/json"
 	"reflect"
@@ -12,7 +11,6 @@ import (
 	"github.com/nats-io/nats.go"
 	"github.com/nats-io/nats.go/micro"
 
-	"github.com/touchledger/touchledger/demo/shop"
 	"github.com/touchledger/touchledger/internal/config"
 	"github.com/touchledger/touchledger/internal/pipeline"
 	"github.com/touchledger/touchledger/internal/query"
@@ -49,13 +47,7 @@ type liveSetup struct {
 // partition into two workers (0-7 and 8-15) answering on a NATS server.
 func newLive(t *testing.T) liveSetup {
 	t.Helper()
-	c := shop.DefaultConfig()
-	c.Visitors, c.Days, c.ShiftDay, c.IncidentDay = 2000, 7, 3, 5
-	var buf bytes.Buffer
-	if _, err := shop.Generate(&buf, c); err != nil {
-		t.Fatal(err)
-	}
-	events := buf.Bytes()
+	events := testsupport.DemoEvents(t)
 	s := testsupport.StartNATS(t, testsupport.NATSOptions{})
 	l := liveSetup{url: s.ClientURL(), full: testsupport.ReplayDir(t, config.Default(), testsupport.SplitByPartition(t, events, 16, 0, 15))}
 	startWorker(t, s, testsupport.ReplayDir(t, config.Default(), testsupport.SplitByPartition(t, events, 16, 0, 7)), 0, 7)
