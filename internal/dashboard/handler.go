@@ -17,7 +17,6 @@ import (
 	"strings"
 	"time"
 
-	"github.com/touchledger/touchledger/internal/config"
 	"github.com/touchledger/touchledger/internal/query"
 )
 
@@ -196,29 +195,38 @@ func (h *handler) parse(v url.Values) (Selection, error) {
 			return sel, fmt.Errorf("parameter %q given %d times", name, len(v[name]))
 		}
 	}
-	if v.Has("model") {
-		m := v.Get("model")
-		if !slices.Contains(h.opts.Models, m) {
-			return sel, fmt.Errorf("model %q is not shown here (choose one of %s)", m, strings.Join(h.opts.Models, ", "))
+	// The values are read as every surface reads them (query.ParseRequest:
+	// the daily chart is a shift question, the other charts' window a
+	// "last"); the page adds its own narrower bounds.
+	shift := map[string]string{"model": sel.Model}
+	for _, name := range []string{"model", "days"} {
+		if v.Has(name) {
+			shift[name] = v.Get(name)
 		}
-		sel.Model = m
+	}
+	if v.Has("model") && !slices.Contains(h.opts.Models, v.Get("model")) {
+		return sel, fmt.Errorf("model %q is not shown here (choose one of %s)", v.Get("model"), strings.Join(h.opts.Models, ", "))
+	}
+	r, err := query.ParseRequest(query.KindShift, shift)
+	if err != nil {
+		return sel, err
+	}
+	sel.Model = r.Model
+	if r.Days != 0 {
+		if r.Days > MaxDays {
+			return sel, fmt.Errorf("days: must be 1 to %d on this page, got %d", MaxDays, r.Days)
+		}
+		sel.Days = r.Days
 	}
 	if v.Has("last") {
-		d, err := config.ParseDuration(v.Get("last"))
+		r, err := query.ParseRequest(query.KindFunnel, map[string]string{"last": v.Get("last")})
 		if err != nil {
-			return sel, fmt.Errorf("last: %w", err)
+			return sel, err
 		}
-		if d < time.Minute || d > MaxLast {
-			return sel, fmt.Errorf("last must be between 1m and %s, got %s", durationLabel(MaxLast), v.Get("last"))
+		if d := r.Window.Last; d < time.Minute || d > MaxLast {
+			return sel, fmt.Errorf("last: must be between 1m and %s on this page, got %s", durationLabel(MaxLast), v.Get("last"))
 		}
-		sel.Last = d
-	}
-	if v.Has("days") {
-		n, err := strconv.Atoi(v.Get("days"))
-		if err != nil || n < 1 || n > MaxDays {
-			return sel, fmt.Errorf("days must be a whole number from 1 to %d, got %q", MaxDays, v.Get("days"))
-		}
-		sel.Days = n
+		sel.Last = r.Window.Last
 	}
 	return sel, nil
 }
