@@ -303,10 +303,10 @@ func channelMatrixChart(a Answers) Chart {
 func matrixSummary(a query.TransitionsAnswer) string {
 	var first, conv query.Transition
 	for _, t := range a.Transitions {
-		if t.From == stateStart && t.Probability > first.Probability {
+		if t.From == event.StateEntry && t.Probability > first.Probability {
 			first = t
 		}
-		if t.To == stateConversion && t.From != stateStart && t.Probability > conv.Probability {
+		if t.To == event.StateConverted && t.From != event.StateEntry && t.Probability > conv.Probability {
 			conv = t
 		}
 	}
