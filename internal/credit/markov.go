@@ -115,7 +115,7 @@ type MarkovResult struct {
 
 // ErrNoConversionPath is returned by Markov when @converted cannot be reached
 // from @entry (P = 0): removal effects are undefined.
-var ErrNoConversionPath = errors.New("markov: no path from start to conversion")
+var ErrNoConversionPath = errors.New("markov: no path from @entry to @converted")
 
 // ErrNoRemovalEffect is returned by Markov when every removal effect is 0
 // (every conversion path avoids all channels), so there is nothing to share.
@@ -509,18 +509,18 @@ func targetOf(s string) (int32, error) {
 	case s == StateLost:
 		return toNull, nil
 	case s == StateEntry:
-		return 0, errors.New("markov: transition into start")
+		return 0, errors.New("markov: transition into @entry")
 	case s == "" || s[0] == 0:
 		return 0, fmt.Errorf("markov: invalid target state %q", s)
 	}
 	return 0, nil
 }
 
-// label renders a state for messages: reserved names without the 0x00
-// byte, tuples with ">" between channels.
+// label renders a state for messages as answers name it: a reserved state
+// as @entry, @converted or @lost, a tuple with " → " between channels.
 func label(s string) string {
 	if s != "" && s[0] == 0 {
-		return strings.ToUpper(s[1:])
+		return "@" + s[1:]
 	}
-	return "(" + strings.ReplaceAll(s, stateSep, ">") + ")"
+	return "(" + strings.ReplaceAll(s, stateSep, " → ") + ")"
 }

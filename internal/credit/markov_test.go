@@ -12,7 +12,7 @@ import (
 	"gonum.org/v1/gonum/mat"
 )
 
-// journey is one path of channels ("A>B>C", "" for none) with its outcome,
+// journey is one path of channels ("A B C", "" for none) with its outcome,
 // repeated times times.
 type journey struct {
 	path      string
@@ -24,7 +24,7 @@ func splitPath(p string) []string {
 	if p == "" {
 		return nil
 	}
-	return strings.Split(p, ">")
+	return strings.Fields(p)
 }
 
 // countsOf aggregates the order-k transitions of journeys, the way the
@@ -94,26 +94,26 @@ func TestPathTransitions(t *testing.T) {
 		collapse  bool
 		want      []Transition
 	}{
-		{"order 1", "A>B>C", 1, true, true, []Transition{
+		{"order 1", "A B C", 1, true, true, []Transition{
 			{StateEntry, st("A")}, {st("A"), st("B")}, {st("B"), st("C")}, {st("C"), StateConverted}}},
-		{"order 2", "A>B>C", 2, false, true, []Transition{
+		{"order 2", "A B C", 2, false, true, []Transition{
 			{StateEntry, st("A")}, {st("A"), st("A", "B")}, {st("A", "B"), st("B", "C")}, {st("B", "C"), StateLost}}},
-		{"order 3 longer path", "A>B>C>D", 3, true, true, []Transition{
+		{"order 3 longer path", "A B C D", 3, true, true, []Transition{
 			{StateEntry, st("A")}, {st("A"), st("A", "B")}, {st("A", "B"), st("A", "B", "C")},
 			{st("A", "B", "C"), st("B", "C", "D")}, {st("B", "C", "D"), StateConverted}}},
-		{"order 3 short path", "A>B", 3, false, false, []Transition{
+		{"order 3 short path", "A B", 3, false, false, []Transition{
 			{StateEntry, st("A")}, {st("A"), st("A", "B")}, {st("A", "B"), StateLost}}},
-		{"collapse repeats", "A>A>B>B>A", 1, true, true, []Transition{
+		{"collapse repeats", "A A B B A", 1, true, true, []Transition{
 			{StateEntry, st("A")}, {st("A"), st("B")}, {st("B"), st("A")}, {st("A"), StateConverted}}},
-		{"keep repeats order 1", "A>A>B", 1, true, false, []Transition{
+		{"keep repeats order 1", "A A B", 1, true, false, []Transition{
 			{StateEntry, st("A")}, {st("A"), st("A")}, {st("A"), st("B")}, {st("B"), StateConverted}}},
-		{"keep repeats order 2", "A>A>B", 2, false, false, []Transition{
+		{"keep repeats order 2", "A A B", 2, false, false, []Transition{
 			{StateEntry, st("A")}, {st("A"), st("A", "A")}, {st("A", "A"), st("A", "B")}, {st("A", "B"), StateLost}}},
-		{"collapse order 2", "A>A>B", 2, false, true, []Transition{
+		{"collapse order 2", "A A B", 2, false, true, []Transition{
 			{StateEntry, st("A")}, {st("A"), st("A", "B")}, {st("A", "B"), StateLost}}},
 		{"empty converted", "", 2, true, true, []Transition{{StateEntry, StateConverted}}},
 		{"empty null", "", 1, false, false, []Transition{{StateEntry, StateLost}}},
-		{"k below 1 is 1", "A>B", 0, true, true, []Transition{
+		{"k below 1 is 1", "A B", 0, true, true, []Transition{
 			{StateEntry, st("A")}, {st("A"), st("B")}, {st("B"), StateConverted}}},
 	}
 	for _, tt := range tests {
@@ -154,13 +154,13 @@ type markovCase struct {
 }
 
 var (
-	ex1  = []journey{{"A>B>C", true, 1}, {"A", false, 1}, {"B>C", false, 1}}
-	ex2  = []journey{{"A>B>A", true, 1}}
-	ex2b = []journey{{"A>B>A", true, 1}, {"B", false, 1}}
-	ex3  = []journey{{"A>A>B", true, 1}, {"B>B", false, 1}, {"A", false, 1}}
-	ex4  = []journey{{"A>C", true, 1}, {"B>C", false, 1}}
-	ex5  = []journey{{"A", true, 1}, {"B>B", true, 1}, {"A>B>B", false, 1}}
-	ex6  = []journey{{"G", true, 2}, {"M", true, 1}, {"G>M", true, 1}, {"G", false, 1}}
+	ex1  = []journey{{"A B C", true, 1}, {"A", false, 1}, {"B C", false, 1}}
+	ex2  = []journey{{"A B A", true, 1}}
+	ex2b = []journey{{"A B A", true, 1}, {"B", false, 1}}
+	ex3  = []journey{{"A A B", true, 1}, {"B B", false, 1}, {"A", false, 1}}
+	ex4  = []journey{{"A C", true, 1}, {"B C", false, 1}}
+	ex5  = []journey{{"A", true, 1}, {"B B", true, 1}, {"A B B", false, 1}}
+	ex6  = []journey{{"G", true, 2}, {"M", true, 1}, {"G M", true, 1}, {"G", false, 1}}
 )
 
 var markovCases = []markovCase{
@@ -465,7 +465,7 @@ func randomJourneys(r *rand.Rand, count, channels, maxLen int) []journey {
 			}
 			parts[j] = fmt.Sprintf("c%d", r.IntN(channels))
 		}
-		js[i] = journey{strings.Join(parts, ">"), r.IntN(3) == 0, 1 + int64(r.IntN(5))}
+		js[i] = journey{strings.Join(parts, " "), r.IntN(3) == 0, 1 + int64(r.IntN(5))}
 	}
 	return js
 }
@@ -656,7 +656,7 @@ func TestMarkovErrors(t *testing.T) {
 		is     error // nil: any non-nil error
 	}{
 		{"no counts", nil, ErrNoConversionPath},
-		{"nobody converts", countsOf([]journey{{"A>B", false, 3}}, 1, true), ErrNoConversionPath},
+		{"nobody converts", countsOf([]journey{{"A B", false, 3}}, 1, true), ErrNoConversionPath},
 		{"conversion unreachable", []TransitionCount{{StateEntry, "A", 1}, {"A", StateLost, 1}, {"B", StateConverted, 1}}, ErrNoConversionPath},
 		{"only empty paths convert", countsOf([]journey{{"", true, 2}, {"A", false, 1}}, 1, true), ErrNoRemovalEffect},
 		{"negative count", []TransitionCount{{StateEntry, "A", -1}}, nil},

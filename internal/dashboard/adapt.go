@@ -192,14 +192,6 @@ func ModelDots(credits []ModelCredit, ch Channels, truth *query.Truth) ([]string
 	return models, rows
 }
 
-// Row and column markers of the channel transition matrix, as the query
-// answer names them.
-const (
-	stateStart      = event.StateEntry
-	stateConversion = event.StateConverted
-	stateNull       = event.StateLost
-)
-
 // TransitionGrid lays a channel transition answer out as a matrix: rows
 // @entry then the channels by name, columns the channels then @converted and
 // @lost; a cell is the row probability of the transition with its count.
@@ -207,7 +199,7 @@ func TransitionGrid(a query.TransitionsAnswer) (rows, cols []string, cells [][]H
 	seen := map[string]bool{}
 	for _, t := range a.Transitions {
 		for _, s := range []string{t.From, t.To} {
-			if s != stateStart && s != stateConversion && s != stateNull {
+			if s != event.StateEntry && s != event.StateConverted && s != event.StateLost {
 				seen[s] = true
 			}
 		}
@@ -220,8 +212,8 @@ func TransitionGrid(a query.TransitionsAnswer) (rows, cols []string, cells [][]H
 	if len(a.Transitions) == 0 {
 		return nil, nil, nil
 	}
-	rows = append([]string{stateStart}, chans...)
-	cols = append(append([]string{}, chans...), stateConversion, stateNull)
+	rows = append([]string{event.StateEntry}, chans...)
+	cols = append(append([]string{}, chans...), event.StateConverted, event.StateLost)
 	ri, ci := map[string]int{}, map[string]int{}
 	for i, r := range rows {
 		ri[r] = i

@@ -282,7 +282,7 @@ func channelMatrixChart(a Answers) Chart {
 	}
 	rows, cols, cells := TransitionGrid(a.Channels)
 	c.SVG = template.HTML(Heatmap(rows, cols, cells, Frame{ID: c.ID, Title: "Channel transition probabilities",
-		Desc:   "Heatmap: rows are the journey start and each channel, columns the next channel, @converted or @lost; each cell is the row probability, darker is higher.",
+		Desc:   "Heatmap: rows are @entry (the journey start) and each channel, columns the next channel, @converted or @lost; each cell is the row probability, darker is higher.",
 		XLabel: "row probability (transitions out of the row's state)", Unit: Percent}))
 	c.Summary = matrixSummary(a.Channels)
 	c.Table = Table{Caption: "Transition probabilities (count)", Head: append([]string{"from \\ to"}, cols...)}
@@ -303,10 +303,10 @@ func channelMatrixChart(a Answers) Chart {
 func matrixSummary(a query.TransitionsAnswer) string {
 	var first, conv query.Transition
 	for _, t := range a.Transitions {
-		if t.From == stateStart && t.Probability > first.Probability {
+		if t.From == event.StateEntry && t.Probability > first.Probability {
 			first = t
 		}
-		if t.To == stateConversion && t.From != stateStart && t.Probability > conv.Probability {
+		if t.To == event.StateConverted && t.From != event.StateEntry && t.Probability > conv.Probability {
 			conv = t
 		}
 	}
