@@ -33,7 +33,7 @@ import (
 
 // natsFlags are the options for reaching an existing NATS server.
 type natsFlags struct {
-	url, user, password, token, nkey, creds, ca, cert, key string
+	url, user, password, token, nkey, creds, ca, cert, key, authFile string
 }
 
 func addNATSFlags(fs *flag.FlagSet, f *natsFlags, defaultURL, urlHelp string) {
@@ -46,11 +46,19 @@ func addNATSFlags(fs *flag.FlagSet, f *natsFlags, defaultURL, urlHelp string) {
 	fs.StringVar(&f.ca, "nats-ca", "", "TLS: CA certificates `file` to trust")
 	fs.StringVar(&f.cert, "nats-cert", "", "TLS: client certificate `file` (with --nats-key)")
 	fs.StringVar(&f.key, "nats-key", "", "TLS: client key `file`")
+	fs.StringVar(&f.authFile, "nats-auth-file", "", "`file` with user:password (mode 600), e.g. DIR/nats-publisher.auth of a worker started with --local-auth")
 }
 
 // options returns the connection options; secrets not given as flags come
 // from the environment (so they need not appear in the process list).
-func (f natsFlags) options(name string) stream.ConnectOptions {
+func (f natsFlags) options(name string) (stream.ConnectOptions, error) {
+	if f.authFile != "" {
+		c, err := stream.ReadAuthFile(f.authFile)
+		if err != nil {
+			return stream.ConnectOptions{}, err
+		}
+		f.user, f.password = c.User, c.Password
+	}
 	if f.password == "" {
 		f.password = os.Getenv("TL_NATS_PASSWORD")
 	}
@@ -58,7 +66,7 @@ func (f natsFlags) options(name string) stream.ConnectOptions {
 		f.token = os.Getenv("TL_NATS_TOKEN")
 	}
 	return stream.ConnectOptions{URL: f.url, Name: name, User: f.user, Password: f.password, Token: f.token,
-		NKeyFile: f.nkey, CredsFile: f.creds, CAFile: f.ca, CertFile: f.cert, KeyFile: f.key}
+		NKeyFile: f.nkey, CredsFile: f.creds, CAFile: f.ca, CertFile: f.cert, KeyFile: f.key}, nil
 }
 
 // liveFlags are the options of live mode.
@@ -69,6 +77,7 @@ type liveFlags struct {
 	scfg         stream.Config
 	httpAddr     string
 	httpToken    string
+	localAuth    bool
 	logFormat    string
 	shutdownWait time.Duration
 	// Feeds on NATS (internal/feed).
@@ -113,6 +122,7 @@ func addLiveFlags(fs *flag.FlagSet, l *liveFlags) {
 	fs.DurationVar(&l.scfg.WatchdogTimeout, "watchdog", l.scfg.WatchdogTimeout, "flag the consumer stalled after this long without deliveries while messages are pending")
 	fs.StringVar(&l.httpAddr, "http", web.DefaultAddr, "`address` for /metrics, /healthz, /readyz and /api/ (\"off\" disables; port 0 = any free port)")
 	fs.StringVar(&l.httpToken, "http-token", "", "bearer `token` required on HTTP (default $TL_HTTP_TOKEN; needed to listen beyond loopback)")
+	fs.BoolVar(&l.localAuth, "local-auth", false, "the embedded server requires credentials, generated into DIR/nats-worker.auth and DIR/nats-publisher.auth (mode 600; publishers may only publish tl.in.>); default: open to every local process, like NATS itself")
 	fs.StringVar(&l.logFormat, "log-format", "text", "log `format` on standard error: text or json")
 	fs.DurationVar(&l.shutdownWait, "shutdown-timeout", 10*time.Second, "longest wait for HTTP requests when stopping")
 	l.reportInterval, l.reportWindow = feed.DefaultReportInterval, feed.DefaultReportWindow
@@ -168,9 +178,24 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 
 	// The bus: embedded unless --nats.
 	url := l.nats.url
+	opts, err := l.nats.options("touchledger worker " + parts.String())
+	if err != nil {
+		return err
+	}
 	if url == "" {
 		var srv *server.Server
-		srv, url, err = stream.StartEmbedded(dir, stream.EmbedPort(l.port), stream.EmbedConfig(l.scfg), stream.EmbedLogger(log))
+		eopts := []stream.EmbedOption{stream.EmbedPort(l.port), stream.EmbedConfig(l.scfg), stream.EmbedLogger(log)}
+		access := "open to every local process (--local-auth requires credentials)"
+		var la stream.LocalAuth
+		if l.localAuth {
+			if la, err = stream.LoadOrCreateLocalAuth(dir); err != nil {
+				return err
+			}
+			eopts = append(eopts, stream.EmbedAuth(la))
+			opts.User, opts.Password = la.Worker.User, la.Worker.Password
+			access = "credentials required"
+		}
+		srv, url, err = stream.StartEmbedded(dir, eopts...)
 		if err != nil {
 			return err
 		}
@@ -178,10 +203,15 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 			srv.Shutdown()
 			srv.WaitForShutdown()
 		}()
-		fmt.Fprintf(stdout, "nats: %s (embedded, loopback only; JetStream in %s; publish with: ingest send --nats %s FILE)\n",
-			url, filepath.Join(dir, "nats"), url)
+		publish := "ingest send --nats " + url + " FILE"
+		if l.localAuth {
+			publish = "ingest send --nats " + url + " --nats-auth-file " + la.PublisherFile + " FILE"
+		}
+		fmt.Fprintf(stdout, "nats: %s (embedded, loopback only, %s; JetStream in %s; publish with: %s)\n",
+			url, access, filepath.Join(dir, "nats"), publish)
+	} else if l.localAuth {
+		return errors.New("--local-auth is for the embedded server; with --nats give the server's credentials")
 	}
-	opts := l.nats.options("touchledger worker " + parts.String())
 	opts.URL = url
 	nc, err := stream.Connect(opts, log)
 	if err != nil {
@@ -244,6 +274,17 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 	}
 	m = metrics.New(reg, mopts)
 	if l.httpAddr != "off" && l.httpAddr != "" {
+		// /admin/backup always needs a token: the HTTP token, or one
+		// generated into the directory.
+		backupToken, tokenNote := l.httpToken, ""
+		if backupToken == "" {
+			tf := filepath.Join(dir, "backup.token")
+			c, err := stream.LoadOrCreateToken(tf)
+			if err != nil {
+				return err
+			}
+			backupToken, tokenNote = c, "; /admin/backup needs the token in "+tf
+		}
 		idle := func(ctx context.Context) bool {
 			lag, err := w.Lag(ctx)
 			return err == nil && lag == 0 && w.Health().Committed == 0
@@ -257,6 +298,7 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 			Log:            log,
 			Page:           dashboard.NewHandler(dashboard.Options{Open: openQuerier, Title: "touchledger"}),
 			Backup:         st.Backup,
+			BackupToken:    backupToken,
 		})
 		ln, err := web.Listen(ctx, l.httpAddr, l.httpToken)
 		if err != nil {
@@ -273,7 +315,7 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 			defer cancel()
 			srv.Shutdown(sctx)
 		}()
-		fmt.Fprintf(stdout, "http: http://%s/ (metrics, healthz, readyz, api)\n", ln.Addr())
+		fmt.Fprintf(stdout, "http: http://%s/ (metrics, healthz, readyz, api%s)\n", ln.Addr(), tokenNote)
 	}
 
 	// Queries over NATS for this worker's partitions.
