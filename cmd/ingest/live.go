@@ -41,6 +41,7 @@ type liveFlags struct {
 	httpAddr     string
 	httpToken    string
 	truthFile    string
+	localAuth    bool
 	logFormat    string
 	shutdownWait time.Duration
 	// Feeds on NATS (internal/feed).
@@ -66,6 +67,7 @@ func addLiveFlags(fs *flag.FlagSet, l *liveFlags) {
 	fs.StringVar(&l.httpAddr, "http", web.DefaultAddr, "`address` for /metrics, /healthz, /readyz and /api/ (\"off\" disables; port 0 = any free port)")
 	fs.StringVar(&l.httpToken, "http-token", "", "bearer `token` required on HTTP (default $TL_HTTP_TOKEN; needed to listen beyond loopback)")
 	fs.StringVar(&l.truthFile, "truth", "", "a simulated world's truth `file` (demo --truth): the dashboard draws each channel's true share beside the models")
+	fs.BoolVar(&l.localAuth, "local-auth", false, "the embedded server requires credentials, generated into DIR/nats-worker.auth and DIR/nats-publisher.auth (mode 600; publishers may only publish tl.in.>); default: open to every local process, like NATS itself")
 	fs.StringVar(&l.logFormat, "log-format", "text", "log `format` on standard error: text or json")
 	cli.DurationVar(fs, &l.shutdownWait, "shutdown-timeout", 10*time.Second, "longest wait for HTTP requests when stopping")
 	l.reportInterval, l.reportWindow = feed.DefaultReportInterval, feed.DefaultReportWindow
@@ -129,9 +131,24 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 
 	// The bus: embedded unless --nats.
 	url := l.nats.URL()
+	opts, err := l.nats.Options("touchledger worker " + parts.String())
+	if err != nil {
+		return err
+	}
 	if url == "" {
 		var srv *server.Server
-		srv, url, err = stream.StartEmbedded(dir, stream.EmbedPort(l.port), stream.EmbedConfig(l.scfg), stream.EmbedLogger(log))
+		eopts := []stream.EmbedOption{stream.EmbedPort(l.port), stream.EmbedConfig(l.scfg), stream.EmbedLogger(log)}
+		access := "open to every local process (--local-auth requires credentials)"
+		var la stream.LocalAuth
+		if l.localAuth {
+			if la, err = stream.LoadOrCreateLocalAuth(dir); err != nil {
+				return err
+			}
+			eopts = append(eopts, stream.EmbedAuth(la))
+			opts.User, opts.Password = la.Worker.User, la.Worker.Password
+			access = "credentials required"
+		}
+		srv, url, err = stream.StartEmbedded(dir, eopts...)
 		if err != nil {
 			return err
 		}
@@ -139,10 +156,15 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 			srv.Shutdown()
 			srv.WaitForShutdown()
 		}()
-		fmt.Fprintf(stdout, "nats: %s (embedded, loopback only; JetStream in %s; publish with: ingest send --nats %s FILE)\n",
-			url, filepath.Join(dir, "nats"), url)
+		publish := "ingest send --nats " + url + " FILE"
+		if l.localAuth {
+			publish = "ingest send --nats " + url + " --nats-auth-file " + la.PublisherFile + " FILE"
+		}
+		fmt.Fprintf(stdout, "nats: %s (embedded, loopback only, %s; JetStream in %s; publish with: %s)\n",
+			url, access, filepath.Join(dir, "nats"), publish)
+	} else if l.localAuth {
+		return errors.New("--local-auth is for the embedded server; with --nats give the server's credentials")
 	}
-	opts := l.nats.Options("touchledger worker " + parts.String())
 	opts.URL = url
 	nc, err := stream.Connect(opts, log)
 	if err != nil {
@@ -207,6 +229,17 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 	}
 	m = metrics.New(reg, mopts)
 	if l.httpAddr != "off" && l.httpAddr != "" {
+		// /admin/backup always needs a token: the HTTP token, or one
+		// generated into the directory.
+		backupToken, tokenNote := l.httpToken, ""
+		if backupToken == "" {
+			tf := filepath.Join(dir, "backup.token")
+			c, err := stream.LoadOrCreateToken(tf)
+			if err != nil {
+				return err
+			}
+			backupToken, tokenNote = c, "; /admin/backup needs the token in "+tf
+		}
 		idle := func(ctx context.Context) bool {
 			lag, err := w.Lag(ctx)
 			return err == nil && lag == 0 && w.Health().Committed == 0
@@ -219,6 +252,7 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 			Log:         log,
 			Page:        dashboard.NewHandler(dashboard.Options{Open: openQuerier, Title: "touchledger", Truth: truth}),
 			Backup:      st.Backup,
+			BackupToken: backupToken,
 		})
 		ln, err := web.Listen(ctx, l.httpAddr, l.httpToken)
 		if err != nil {
@@ -235,7 +269,7 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 			defer cancel()
 			srv.Shutdown(sctx)
 		}()
-		fmt.Fprintf(stdout, "http: http://%s/ (metrics, healthz, readyz, api)\n", ln.Addr())
+		fmt.Fprintf(stdout, "http: http://%s/ (metrics, healthz, readyz, api%s)\n", ln.Addr(), tokenNote)
 	}
 
 	// Queries over NATS for this worker's partitions.

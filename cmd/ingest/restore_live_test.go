@@ -102,7 +102,7 @@ func TestRestoreResumesFromBus(t *testing.T) {
 	}
 	backup := filepath.Join(t.TempDir(), "b.backup")
 	var o, e bytes.Buffer
-	if code := run([]string{"backup", "--from", addr, "--out", backup}, &o, &e); code != 0 {
+	if code := run([]string{"backup", "--from", addr, "--token-file", filepath.Join(dir1, "backup.token"), "--out", backup}, &o, &e); code != 0 {
 		t.Fatalf("backup: %s", e.String())
 	}
 	// The first worker goes on: more events, more acknowledgements, beyond

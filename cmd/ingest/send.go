@@ -110,9 +110,12 @@ func runSend(args []string, stdout, stderr io.Writer) int {
 	// dials a new one and re-publishes from the oldest unacknowledged line
 	// in order, so a worker restarted with its embedded server gets the
 	// input in order.
-	copts := nf.Options("touchledger send")
-	copts.NoReconnect = true
-	if err := copts.Validate(); err != nil {
+	copts, err := nf.Options("touchledger send")
+	if err == nil {
+		copts.NoReconnect = true
+		err = copts.Validate()
+	}
+	if err != nil {
 		fmt.Fprintf(stderr, "ingest send: %v\n", err)
 		return 2
 	}

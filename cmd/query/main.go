@@ -341,8 +341,11 @@ func (s *source) open(stderr io.Writer) (*query.Querier, func(), error) {
 
 // connect connects to NATS with the shared connection flags.
 func (s *source) connect() (*nats.Conn, error) {
-	o := s.nats.Options("touchledger query")
-	if err := o.Validate(); err != nil {
+	o, err := s.nats.Options("touchledger query")
+	if err == nil {
+		err = o.Validate()
+	}
+	if err != nil {
 		return nil, usageError{err}
 	}
 	return stream.Connect(o, nil)

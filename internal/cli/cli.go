@@ -109,7 +109,7 @@ func Version(cmd string) string {
 // NATS holds the flags for reaching an existing NATS server or cluster;
 // query and ingest register the same set.
 type NATS struct {
-	url, user, password, token, nkey, creds, ca, cert, key string
+	url, user, password, token, nkey, creds, ca, cert, key, authFile string
 }
 
 // AddNATS registers --nats (default: $NATS_URL, else defaultURL) and the
@@ -128,6 +128,7 @@ func AddNATS(fs *flag.FlagSet, defaultURL, urlHelp string) *NATS {
 	fs.StringVar(&f.ca, "nats-ca", "", "TLS: CA certificates `file` to trust")
 	fs.StringVar(&f.cert, "nats-cert", "", "TLS: client certificate `file` (with --nats-key)")
 	fs.StringVar(&f.key, "nats-key", "", "TLS: client key `file`")
+	fs.StringVar(&f.authFile, "nats-auth-file", "", "`file` with user:password (mode 600), e.g. DIR/nats-publisher.auth of a worker started with --local-auth")
 	return f
 }
 
@@ -135,15 +136,23 @@ func AddNATS(fs *flag.FlagSet, defaultURL, urlHelp string) *NATS {
 func (f *NATS) URL() string { return f.url }
 
 // Options returns the connection options; secrets not given as flags come
-// from the environment (so they need not appear in the process list).
-func (f *NATS) Options(name string) stream.ConnectOptions {
-	pw, tok := f.password, f.token
+// from --nats-auth-file or the environment (so they need not appear in the
+// process list).
+func (f *NATS) Options(name string) (stream.ConnectOptions, error) {
+	user, pw, tok := f.user, f.password, f.token
+	if f.authFile != "" {
+		c, err := stream.ReadAuthFile(f.authFile)
+		if err != nil {
+			return stream.ConnectOptions{}, err
+		}
+		user, pw = c.User, c.Password
+	}
 	if pw == "" {
 		pw = os.Getenv("TL_NATS_PASSWORD")
 	}
 	if tok == "" {
 		tok = os.Getenv("TL_NATS_TOKEN")
 	}
-	return stream.ConnectOptions{URL: f.url, Name: name, User: f.user, Password: pw, Token: tok,
-		NKeyFile: f.nkey, CredsFile: f.creds, CAFile: f.ca, CertFile: f.cert, KeyFile: f.key}
+	return stream.ConnectOptions{URL: f.url, Name: name, User: user, Password: pw, Token: tok,
+		NKeyFile: f.nkey, CredsFile: f.creds, CAFile: f.ca, CertFile: f.cert, KeyFile: f.key}, nil
 }

@@ -52,9 +52,11 @@ const maxForgetUser = 4096
 // mapping, FNV-1a 32 of the user key token modulo n (nats-server
 // subject_transform.go; deploy/nats/README.md gives the worked example
 // shopper-1 → key 86d32d48dd04ae81 → partition 9 of 16).
-func PartitionOf(user string, n int) int {
+func PartitionOf(user string, n int) int { return partitionOfKey(UserKey(user), n) }
+
+func partitionOfKey(key string, n int) int {
 	h := fnv.New32a()
-	h.Write([]byte(UserKey(user)))
+	h.Write([]byte(key))
 	return int(h.Sum32() % uint32(n))
 }
 

@@ -8,6 +8,8 @@ import (
 	"time"
 
 	"github.com/cespare/xxhash/v2"
+
+	"github.com/touchledger/touchledger/internal/event"
 )
 
 // Kinds of input subjects: the event contract's two kinds.
@@ -190,6 +192,40 @@ func appendHex64(b []byte, x uint64) []byte {
 // kind (KindTouch or KindAction) to: <prefix>.in.<kind>.<UserKey(user)>.
 func Subject(prefix, kind, user string) string {
 	return prefix + ".in." + kind + "." + UserKey(user)
+}
+
+// CheckSubject verifies that an events-stream subject
+// <prefix>.ev.<partition>.<kind>.<user key> fits the event decoded from
+// its payload: the kind is the event's, the user key is
+// UserKey(SubjectUser(user)) (the pseudonym's key with pseudonymisation),
+// and the partition is the one the mapping gives that key. Anything else
+// was published around the mapping or with another user's key (one user's
+// events would land in several partitions and an erasure would miss
+// some): a bad_subject reject.
+func (c Config) CheckSubject(subject string, e *event.Event) error {
+	bad := func(format string, a ...any) error {
+		return &event.RejectError{Reason: event.ReasonBadSubject, Msg: "subject " + subject + ": " + fmt.Sprintf(format, a...)}
+	}
+	rest, ok := strings.CutPrefix(subject, c.Prefix+".ev.")
+	toks := strings.Split(rest, ".")
+	if !ok || len(toks) != 3 {
+		return bad("want %s.ev.<partition>.<kind>.<user key>", c.Prefix)
+	}
+	if toks[1] != e.Kind.String() {
+		return bad("says %q, the event is a %s", toks[1], e.Kind)
+	}
+	u := e.User
+	if c.SubjectUser != nil {
+		u = c.SubjectUser(u)
+	}
+	key := UserKey(u)
+	if toks[2] != key {
+		return bad("user key %q is not the event's user's (%s)", toks[2], key)
+	}
+	if p := strconv.Itoa(partitionOfKey(key, c.Partitions)); toks[0] != p {
+		return bad("partition %s, the user's is %s (published around the mapping?)", toks[0], p)
+	}
+	return nil
 }
 
 // InputSubjects returns the wildcard of every input subject, the source of

@@ -18,6 +18,7 @@ type embedOptions struct {
 	log     *slog.Logger
 	name    string
 	timeout time.Duration
+	auth    *LocalAuth
 }
 
 // EmbedPort sets the client port on 127.0.0.1; 0 picks a free one (the
@@ -63,6 +64,11 @@ func StartEmbedded(dir string, opts ...EmbedOption) (*server.Server, string, err
 		NoSigs:     true, // the process handles its own signals
 		NoLog:      true, // logging goes through SetLoggerV2 below
 	}
+	var auth *localAuth
+	if o.auth != nil {
+		auth = &localAuth{a: *o.auth, prefix: o.cfg.Prefix}
+		sopts.CustomClientAuthentication = auth
+	}
 	s, err := server.NewServer(sopts)
 	if err != nil {
 		return nil, "", fmt.Errorf("embedded nats: %w", err)
@@ -77,6 +83,12 @@ func StartEmbedded(dir string, opts ...EmbedOption) (*server.Server, string, err
 		return nil, "", fmt.Errorf("embedded nats: partition mapping: %w", err)
 	}
 	s.Start()
+	if auth != nil {
+		if err := auth.setup(s); err != nil {
+			s.Shutdown()
+			return nil, "", err
+		}
+	}
 	// A fatal start-up error (a port in use) is logged, not returned: watch
 	// for it while waiting.
 	for deadline := time.Now().Add(o.timeout); !s.ReadyForConnections(50 * time.Millisecond); {

@@ -671,6 +671,9 @@ func (f *fetcher) forward(ctx context.Context, batch jetstream.MessageBatch) (n 
 		f.next = seq + 1
 		data := msg.Data()
 		ev, derr := f.dec.Decode(data)
+		if derr == nil {
+			derr = f.w.cfg.CheckSubject(msg.Subject(), &ev)
+		}
 		c.items = append(c.items, item{seq: seq, subject: msg.Subject(), data: data, ev: ev, err: derr})
 		c.replies = append(c.replies, delivery{seq: seq, reply: msg.Reply()})
 		n++

@@ -43,7 +43,12 @@ type Options struct {
 	Page http.Handler
 	// Backup, if set, serves GET /admin/backup: a point-in-time copy of the
 	// worker's store (state.Store.Backup) streamed as application/octet-stream.
+	// It always needs a token, also on loopback: Token, or BackupToken
+	// when Token is empty; with neither it answers 403.
 	Backup func(w io.Writer) (int, error)
+	// BackupToken is the bearer token of /admin/backup when Token is empty
+	// (cmd/ingest generates one into the data directory).
+	BackupToken string
 }
 
 // NewHandler serves /healthz, /readyz, /metrics and the JSON/CSV API under
@@ -87,7 +92,20 @@ func NewHandler(opts Options) http.Handler {
 		})
 	}
 	if opts.Backup != nil {
-		mux.HandleFunc("GET /admin/backup", func(w http.ResponseWriter, r *http.Request) {
+		var guard func(http.Handler) http.Handler
+		switch {
+		case opts.Token != "":
+			guard = func(h http.Handler) http.Handler { return h } // the whole mux asks for it
+		case opts.BackupToken != "":
+			guard = func(h http.Handler) http.Handler { return requireToken(opts.BackupToken, h) }
+		default:
+			guard = func(http.Handler) http.Handler {
+				return http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
+					writeError(w, http.StatusForbidden, errors.New("backups need a token: start the worker with --http-token (or let it generate one)"))
+				})
+			}
+		}
+		mux.Handle("GET /admin/backup", guard(http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
 			// A large store takes longer than the server's write timeout.
 			_ = http.NewResponseController(w).SetWriteDeadline(time.Time{})
 			w.Header().Set("Content-Type", "application/octet-stream")
@@ -97,7 +115,7 @@ func NewHandler(opts Options) http.Handler {
 				// restore rejects (checksum).
 				opts.Log.Error("backup", "error", err)
 			}
-		})
+		})))
 	}
 	if opts.Page != nil {
 		mux.Handle("GET /{$}", opts.Page)
