@@ -7,6 +7,8 @@ import (
 	"net/http"
 	"net/http/httptest"
 	"net/url"
+	"os"
+	"path/filepath"
 	"slices"
 	"strings"
 	"testing"
@@ -247,5 +249,56 @@ func TestOneWindowEveryFamily(t *testing.T) {
 	}
 	if !slices.ContainsFunc(strings.Split(first.Rounding, "; "), func(s string) bool { return strings.Contains(s, "hour buckets") }) {
 		t.Errorf("rounding %q does not name the bucket size", first.Rounding)
+	}
+}
+
+// TestAlertsSayWhyShort: alerts --last 28d over data whose 5-minute buckets
+// are kept 2 days covers what those buckets hold and says why (retention),
+// while the credit answers of one window agree on their conversions under
+// every model (one plan per request: the rule and data-driven models read
+// the same buckets).
+func TestAlertsSayWhyShort(t *testing.T) {
+	cfgPath := filepath.Join(t.TempDir(), "tl.yaml")
+	yaml := "store:\n  resolutions:\n    - {name: 5m, step: 5m, retention: 2d}\n    - {name: hour, step: 1h, retention: 90d}\n    - {name: day, step: 1d, retention: 0s}\n"
+	if err := os.WriteFile(cfgPath, []byte(yaml), 0o600); err != nil {
+		t.Fatal(err)
+	}
+	cfg, err := config.Load(cfgPath)
+	if err != nil {
+		t.Fatal(err)
+	}
+	dir := testsupport.ReplayDir(t, cfg, testsupport.DemoEvents(t))
+	code, out, errOut := runCLI("alerts", "--data", dir, "--config", cfgPath, "--last", "28d", "--format", "json")
+	if code != 0 {
+		t.Fatalf("alerts: exit %d: %s", code, errOut)
+	}
+	var a struct {
+		From, To time.Time
+		Rounded  bool
+		Rounding string
+	}
+	if err := json.Unmarshal([]byte(out), &a); err != nil {
+		t.Fatal(err)
+	}
+	if span := a.To.Sub(a.From); !a.Rounded || span > 2*24*time.Hour || !strings.Contains(a.Rounding, "5m buckets, kept 2d (retention)") {
+		t.Errorf("alerts over 28d with 5m buckets kept 2d: %v covered, rounded %v (%q); want at most 2 days and the retention named", span, a.Rounded, a.Rounding)
+	}
+
+	var conv []float64
+	for _, m := range query.Models() {
+		code, out, errOut := runCLI("credit", "--data", dir, "--config", cfgPath, "--model", m, "--last", "3d", "--format", "json")
+		if code != 0 {
+			t.Fatalf("credit %s: exit %d: %s", m, code, errOut)
+		}
+		var c struct{ Conversions float64 }
+		if err := json.Unmarshal([]byte(out), &c); err != nil {
+			t.Fatal(err)
+		}
+		conv = append(conv, c.Conversions)
+	}
+	for i, c := range conv {
+		if c != conv[0] || c == 0 {
+			t.Errorf("credit %s counts %v conversions, %s %v: one window, one count", query.Models()[i], c, query.Models()[0], conv[0])
+		}
 	}
 }
