@@ -107,7 +107,7 @@ func runClock(args []string, stdout, stderr io.Writer) int {
 	}
 	ns := newLatest.UnixNano()
 	nf := min(floor, ns)
-	if _, err := st.Commit(ctx, &state.Commit{Meta: map[string][]byte{state.MetaWatermark: state.EncodeWatermark(ns, nf)}}); err != nil {
+	if _, err := st.Commit(ctx, &state.Commit{Meta: state.Meta{Watermark: &state.Watermark{MaxSeen: ns, Floor: nf}}}); err != nil {
 		fmt.Fprintf(stderr, "ingest clock: repair: %v\n", err)
 		return 1
 	}

@@ -44,7 +44,7 @@ func TestClockRepair(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if _, err := st.Commit(context.Background(), &state.Commit{Meta: map[string][]byte{state.MetaWatermark: state.EncodeWatermark(poison, poison-int64(5*time.Minute))}}); err != nil {
+	if _, err := st.Commit(context.Background(), &state.Commit{Meta: state.Meta{Watermark: &state.Watermark{MaxSeen: poison, Floor: poison - int64(5*time.Minute)}}}); err != nil {
 		t.Fatal(err)
 	}
 	st.Close()

@@ -78,7 +78,7 @@ func versions(m map[string][]byte) string {
 }
 
 func commitMeta(ctx context.Context, st *state.Store, name string, v []byte) error {
-	if _, err := st.Commit(ctx, &state.Commit{Meta: map[string][]byte{name: v}}); err != nil {
+	if _, err := st.Commit(ctx, &state.Commit{Meta: state.Meta{Keys: map[string][]byte{name: v}}}); err != nil {
 		return fmt.Errorf("pipeline: record key fingerprint: %w", err)
 	}
 	return nil

@@ -2,7 +2,6 @@ package pipeline
 
 import (
 	"context"
-	"encoding/binary"
 	"errors"
 	"fmt"
 	"log/slog"
@@ -171,11 +170,7 @@ const pruneLimit = 256
 // lookups read the store; answers never change.
 const knownUsers = 4_000_000
 
-const (
-	metaRejects = state.MetaRejects
-	metaOpen    = state.MetaOpen
-	minInt64    = -1 << 63
-)
+const minInt64 = -1 << 63
 
 // New returns a processor over an open store.
 func New(store *state.Store, cfg Config, rejects RejectSink, log *slog.Logger) (*Processor, error) {
@@ -230,13 +225,9 @@ func New(store *state.Store, cfg Config, rejects RejectSink, log *slog.Logger) (
 	} else if ok {
 		p.reorder.Restore(maxSeen, floor)
 	}
-	mark, err := p.reader.Meta(metaRejects)
+	m, err := p.reader.RejectsLen()
 	if err != nil {
 		return nil, err
-	}
-	var m int64
-	if mark != nil {
-		m, _ = binary.Varint(mark)
 	}
 	if rejects != nil {
 		if err := rejects.Reset(m); err != nil {
@@ -255,7 +246,7 @@ var ErrInterrupted = errors.New("pipeline: another input was interrupted with ev
 // except those in cp.Pending, which it passes to Readmit; then it passes
 // every later position to Offer.
 func (p *Processor) Begin(source string) (Checkpoint, error) {
-	open, err := p.reader.Meta(metaOpen)
+	open, err := p.reader.Open()
 	if err != nil {
 		return Checkpoint{}, err
 	}
@@ -691,7 +682,6 @@ func (p *Processor) commit(ctx context.Context, wait bool) error {
 		Users:       make(map[string][]byte),
 		Counters:    p.batch,
 		Checkpoints: map[string][]byte{},
-		Meta:        map[string][]byte{},
 	}
 	for id, until := range p.erase {
 		// The state itself is dropped right after this commit
@@ -737,17 +727,19 @@ func (p *Processor) commit(ctx context.Context, wait bool) error {
 	switch {
 	case p.source == "": // no input begun (an erasure alone): leave the marker as it is
 	case len(cp.Pending) > 0 || (p.cfg.PersistPending && p.reorder.Len() > 0) || len(p.held) > 0:
-		c.Meta[metaOpen] = []byte(p.source)
+		src := p.source
+		c.Meta.Open = &src
 	default:
-		c.Meta[metaOpen] = []byte{}
+		none := ""
+		c.Meta.Open = &none
 	}
-	c.Meta[state.MetaWatermark] = state.EncodeWatermark(p.reorder.MaxSeen(), p.reorder.Floor())
+	c.Meta.Watermark = &state.Watermark{MaxSeen: p.reorder.MaxSeen(), Floor: p.reorder.Floor()}
 	if p.rejects != nil {
 		mark, err := p.rejects.Sync()
 		if err != nil {
 			return fmt.Errorf("pipeline: sync rejects: %w", err)
 		}
-		c.Meta[metaRejects] = binary.AppendVarint(nil, mark)
+		c.Meta.RejectsLen = &mark
 	}
 	if len(p.cur) >= p.cfg.CacheUsers/2 {
 		p.prev = p.cur

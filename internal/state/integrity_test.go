@@ -25,7 +25,7 @@ func corruptible(t *testing.T) (string, []string) {
 		for i := range 3000 {
 			users[fmt.Sprintf("user-%d-%d", round, i)] = []byte(strings.Repeat(fmt.Sprintf("state %d;", i), 8))
 		}
-		if _, err := s.Commit(ctx, &Commit{Users: users, Meta: map[string][]byte{MetaWatermark: EncodeWatermark(int64(round), 0)}}); err != nil {
+		if _, err := s.Commit(ctx, &Commit{Users: users, Meta: Meta{Watermark: &Watermark{MaxSeen: int64(round)}}}); err != nil {
 			t.Fatal(err)
 		}
 	}

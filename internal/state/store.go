@@ -317,7 +317,44 @@ type Commit struct {
 	Counters    *tally.Batch      // deltas at the finest resolution, fanned out to all
 	Checkpoints map[string][]byte // source → encoded checkpoint
 	Forget      map[string]int64  // user id → Unix ns until which events for the user are dropped (kept with a TTL)
-	Meta        map[string][]byte // name → value
+	Meta        Meta              // the metadata to record; unset fields are left as stored
+}
+
+// Meta is what a commit records about the input beside the state. Each
+// set field is written under its fixed key (MetaWatermark, MetaOpen,
+// MetaRejects, and Keys under their own names), encoded as docs/storage.md
+// describes; nil fields leave the stored value as it is.
+type Meta struct {
+	Watermark *Watermark // the largest event time seen and the watermark floor
+	// Open is the source whose buffered events are pending; "" records that
+	// none is.
+	Open *string
+	// RejectsLen is the committed length of the rejects file, in bytes.
+	RejectsLen *int64
+	// Keys are the privacy key records (pipeline.CheckKey), by name.
+	Keys map[string][]byte
+}
+
+// Watermark is the event-time position of the committed state: MaxSeen the
+// largest event time seen, Floor the watermark floor (Unix ns).
+type Watermark struct{ MaxSeen, Floor int64 }
+
+// encode lists the meta entries to write.
+func (m Meta) encode() map[string][]byte {
+	out := make(map[string][]byte, len(m.Keys)+3)
+	for name, v := range m.Keys {
+		out[name] = v
+	}
+	if m.Watermark != nil {
+		out[MetaWatermark] = EncodeWatermark(m.Watermark.MaxSeen, m.Watermark.Floor)
+	}
+	if m.Open != nil {
+		out[MetaOpen] = []byte(*m.Open)
+	}
+	if m.RejectsLen != nil {
+		out[MetaRejects] = binary.AppendVarint(nil, *m.RejectsLen)
+	}
+	return out
 }
 
 // CommitStats describes a finished commit.
@@ -387,7 +424,7 @@ func (s *Store) Commit(ctx context.Context, c *Commit) (CommitStats, error) {
 			return st, fmt.Errorf("state: set erasure marker: %w", err)
 		}
 	}
-	for name, v := range c.Meta {
+	for name, v := range c.Meta.encode() {
 		if err := set(metaKey(name), v); err != nil {
 			return st, err
 		}
@@ -717,6 +754,26 @@ func (r *Reader) Watermark() (maxSeen, floor int64, ok bool, err error) {
 		return 0, 0, false, errors.New("state: corrupt watermark")
 	}
 	return maxSeen, floor, true, nil
+}
+
+// Open returns the source whose buffered events are pending ("" when none).
+func (r *Reader) Open() (string, error) {
+	b, err := r.Meta(MetaOpen)
+	return string(b), err
+}
+
+// RejectsLen returns the committed length of the rejects file (0 when none
+// was recorded).
+func (r *Reader) RejectsLen() (int64, error) {
+	b, err := r.Meta(MetaRejects)
+	if err != nil || b == nil {
+		return 0, err
+	}
+	n, k := binary.Varint(b)
+	if k <= 0 {
+		return 0, errors.New("state: corrupt rejects length")
+	}
+	return n, nil
 }
 
 // PruneReport says what Prune removed.

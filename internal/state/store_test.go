@@ -30,7 +30,7 @@ func TestCommitFansOutToResolutions(t *testing.T) {
 			b.Add(tally.Credit, base.Add(time.Duration(i)*37*time.Minute).UnixNano(), tally.Join("linear", "mail", ""), tally.Vec{1, 10, 0})
 		}
 		if _, err := s.Commit(ctx, &Commit{Counters: b, Users: map[string][]byte{"u1": {1, 2, 3}},
-			Meta: map[string][]byte{MetaWatermark: EncodeWatermark(base.UnixNano(), 0)}}); err != nil {
+			Meta: Meta{Watermark: &Watermark{MaxSeen: base.UnixNano()}}}); err != nil {
 			t.Fatal(err)
 		}
 	}
