@@ -106,7 +106,7 @@ func (p *Processor) hold(pos uint64, e *event.Event, payload []byte, confirm boo
 	}
 	p.held = kept
 	for i := range admit {
-		if err := p.admit(admit[i].pos, &admit[i].e, admit[i].payload); err != nil {
+		if err := p.admit(Origin{Pos: admit[i].pos}, &admit[i].e, admit[i].payload); err != nil {
 			return err
 		}
 	}
@@ -133,12 +133,12 @@ func (p *Processor) decideHeld(cur uint64, end bool) error {
 		if p.suspect(h.t) {
 			msg := fmt.Sprintf("future: event time %s is more than %s ahead of the latest event time %s and no later events confirmed it",
 				fmtNanos(h.t), p.cfg.MaxJump, fmtNanos(p.reorder.MaxSeen()))
-			if err := p.reject(h.pos, event.ReasonFuture, msg, h.payload); err != nil {
+			if err := p.reject(Origin{Pos: h.pos}, event.ReasonFuture, msg, h.payload); err != nil {
 				return err
 			}
 			continue
 		}
-		if err := p.admit(h.pos, &h.e, h.payload); err != nil {
+		if err := p.admit(Origin{Pos: h.pos}, &h.e, h.payload); err != nil {
 			return err
 		}
 	}
@@ -147,7 +147,8 @@ func (p *Processor) decideHeld(cur uint64, end bool) error {
 
 // admit is the path of an event the clock guard let through: late (or a
 // late duplicate), or into the reorder buffer.
-func (p *Processor) admit(pos uint64, e *event.Event, payload []byte) error {
+func (p *Processor) admit(o Origin, e *event.Event, payload []byte) error {
+	pos := o.Pos
 	if t := e.Time.UnixNano(); p.reorder.Late(t) {
 		// A late event may still be a plain duplicate of one we applied.
 		c, err := p.user(e.User)
@@ -161,7 +162,7 @@ func (p *Processor) admit(pos uint64, e *event.Event, payload []byte) error {
 		p.ckpt.Counts.Late++
 		msg := fmt.Sprintf("late: event time %s is older than the watermark %s",
 			e.Time.Format(time.RFC3339Nano), fmtNanos(p.reorder.Watermark()))
-		return p.rejectRecord(pos, event.ReasonLate, msg, payload)
+		return p.rejectRecord(o, event.ReasonLate, msg, payload)
 	}
 	p.reorder.Push(e, pos)
 	if p.cfg.PersistPending {

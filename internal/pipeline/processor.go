@@ -24,10 +24,18 @@ type RejectSink interface {
 	// Reset discards everything recorded after mark (a value Sync returned
 	// earlier and that was committed); 0 means from the start.
 	Reset(mark int64) error
-	// Reject records one input.
-	Reject(pos uint64, reason event.Reason, msg string, payload []byte) error
+	// Reject records one input, named by its origin.
+	Reject(o Origin, reason event.Reason, msg string, payload []byte) error
 	// Sync makes every record durable and returns a mark for Reset.
 	Sync() (mark int64, err error)
+}
+
+// Origin says where an input came from: its position (a replay file's
+// line number, a stream sequence) and, for live input, the subject it was
+// published on. Each input carries it to the reject sink.
+type Origin struct {
+	Pos     uint64
+	Subject string // "" for replay input
 }
 
 // Config configures a Processor.
@@ -340,7 +348,7 @@ func (p *Processor) ReadmitDecoded(pos uint64, payload []byte, e *event.Event, d
 // Offer processes one new input at position pos (positions increase).
 func (p *Processor) Offer(ctx context.Context, pos uint64, payload []byte) error {
 	e, err := p.dec.Decode(payload)
-	return p.OfferDecoded(ctx, pos, payload, &e, err)
+	return p.OfferDecoded(ctx, Origin{Pos: pos}, payload, &e, err)
 }
 
 // NewDecoder returns a decoder configured like the processor's, for callers
@@ -349,9 +357,11 @@ func (p *Processor) NewDecoder() *event.Decoder {
 	return event.NewDecoder(p.cfg.Limits, p.cfg.Currency)
 }
 
-// OfferDecoded is Offer for an input the caller decoded with a decoder from
-// NewDecoder (decodeErr is its error). payload must stay valid during the call.
-func (p *Processor) OfferDecoded(ctx context.Context, pos uint64, payload []byte, e *event.Event, decodeErr error) error {
+// OfferDecoded is Offer for an input from o the caller decoded with a
+// decoder from NewDecoder (decodeErr is its error). payload must stay valid
+// during the call.
+func (p *Processor) OfferDecoded(ctx context.Context, o Origin, payload []byte, e *event.Event, decodeErr error) error {
+	pos := o.Pos
 	if pos+1 > p.ckpt.Next {
 		p.ckpt.Next = pos + 1
 	}
@@ -363,18 +373,18 @@ func (p *Processor) OfferDecoded(ctx context.Context, pos uint64, payload []byte
 		if !errors.As(decodeErr, &re) {
 			return fmt.Errorf("pipeline: decode input %d: %w", pos, decodeErr)
 		}
-		if err := p.reject(pos, re.Reason, re.Error(), payload); err != nil {
+		if err := p.reject(o, re.Reason, re.Error(), payload); err != nil {
 			return err
 		}
 	} else if r, msg := p.insane(e.Time.UnixNano()); r != "" {
-		if err := p.reject(pos, r, msg, payload); err != nil {
+		if err := p.reject(o, r, msg, payload); err != nil {
 			return err
 		}
 	} else if p.suspect(e.Time.UnixNano()) {
 		if err := p.hold(pos, e, payload, true); err != nil {
 			return err
 		}
-	} else if err := p.admit(pos, e, payload); err != nil {
+	} else if err := p.admit(o, e, payload); err != nil {
 		return err
 	}
 	if len(p.held) > 0 {
@@ -390,19 +400,19 @@ func (p *Processor) OfferDecoded(ctx context.Context, pos uint64, payload []byte
 	return nil
 }
 
-func (p *Processor) reject(pos uint64, r event.Reason, msg string, payload []byte) error {
+func (p *Processor) reject(o Origin, r event.Reason, msg string, payload []byte) error {
 	p.ckpt.Counts.Rejected[r]++
-	return p.rejectRecord(pos, r, msg, payload)
+	return p.rejectRecord(o, r, msg, payload)
 }
 
-func (p *Processor) rejectRecord(pos uint64, r event.Reason, msg string, payload []byte) error {
+func (p *Processor) rejectRecord(o Origin, r event.Reason, msg string, payload []byte) error {
 	if p.rejects == nil {
 		return nil
 	}
 	if p.cfg.Pseudonyms != nil {
 		payload = privacy.Redact(payload)
 	}
-	if err := p.rejects.Reject(pos, r, msg, payload); err != nil {
+	if err := p.rejects.Reject(o, r, msg, payload); err != nil {
 		return fmt.Errorf("pipeline: record reject: %w", err)
 	}
 	return nil

@@ -24,7 +24,7 @@ func TestRejectFileRotation(t *testing.T) {
 			t.Fatal(err)
 		}
 		for i := 0; i < n; i++ {
-			rf.Reject(uint64(i+1), event.ReasonBadJSON, "bad", []byte("not json"))
+			rf.Reject(Origin{Pos: uint64(i + 1)}, event.ReasonBadJSON, "bad", []byte("not json"))
 		}
 		m, err := rf.Sync()
 		if err != nil {

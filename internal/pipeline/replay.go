@@ -61,7 +61,7 @@ func Replay(ctx context.Context, p *Processor, source string, r io.Reader, maxPa
 			if it.readmit {
 				err = p.ReadmitDecoded(it.pos, payload, &it.ev, it.err)
 			} else {
-				err = p.OfferDecoded(ctx, it.pos, payload, &it.ev, it.err)
+				err = p.OfferDecoded(ctx, Origin{Pos: it.pos}, payload, &it.ev, it.err)
 			}
 			if err != nil {
 				return Checkpoint{}, err
@@ -254,7 +254,8 @@ type rejectRecord struct {
 }
 
 // Reject appends one record.
-func (r *RejectFile) Reject(pos uint64, reason event.Reason, msg string, payload []byte) error {
+func (r *RejectFile) Reject(o Origin, reason event.Reason, msg string, payload []byte) error {
+	pos := o.Pos
 	rec := rejectRecord{Line: pos, Reason: reason, Error: msg}
 	if utf8.Valid(payload) {
 		s := string(payload)

@@ -10,6 +10,7 @@ import (
 	"github.com/nats-io/nats.go/jetstream"
 
 	"github.com/touchledger/touchledger/internal/event"
+	"github.com/touchledger/touchledger/internal/pipeline"
 )
 
 // Dead-letter headers.
@@ -33,14 +34,12 @@ const (
 // its message is read again.
 //
 // Not safe for concurrent use: the worker's processing goroutine calls
-// SetOrigin, Reject and Sync.
+// Reject and Sync. Each reject carries its message's origin (stream
+// sequence and subject) for the dead letter's headers.
 type DeadLetters struct {
 	js      jetstream.JetStream
 	cfg     Config
 	timeout time.Duration
-
-	seq     uint64 // the message being offered
-	subject string
 
 	pending   []deadPending
 	published int64
@@ -62,10 +61,6 @@ func NewDeadLetters(js jetstream.JetStream, cfg Config) *DeadLetters {
 	return &DeadLetters{js: js, cfg: cfg, timeout: 10 * time.Second}
 }
 
-// SetOrigin names the message about to be offered (its stream sequence and
-// subject) for the headers of a dead letter it may become.
-func (d *DeadLetters) SetOrigin(seq uint64, subject string) { d.seq, d.subject = seq, subject }
-
 // Published returns the number of dead letters acknowledged so far by this
 // sink (a restart repeats those after the last commit; the stream stores
 // them once).
@@ -75,11 +70,8 @@ func (d *DeadLetters) Published() int64 { return d.published }
 func (d *DeadLetters) Reset(int64) error { return nil }
 
 // Reject publishes one dead letter.
-func (d *DeadLetters) Reject(pos uint64, reason event.Reason, msg string, payload []byte) error {
-	subject := ""
-	if pos == d.seq {
-		subject = d.subject
-	}
+func (d *DeadLetters) Reject(o pipeline.Origin, reason event.Reason, msg string, payload []byte) error {
+	pos, subject := o.Pos, o.Subject
 	m := &nats.Msg{Subject: d.cfg.DeadSubject(string(reason)), Data: append([]byte(nil), payload...), Header: nats.Header{}}
 	m.Header.Set(HeaderReason, string(reason))
 	m.Header.Set(HeaderSubject, subject)

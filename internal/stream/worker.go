@@ -259,8 +259,7 @@ loop:
 				if it.seq < next {
 					continue
 				}
-				w.dead.SetOrigin(it.seq, it.subject)
-				if err := p.OfferDecoded(pctx, it.seq, it.data, &it.ev, it.err); err != nil {
+				if err := p.OfferDecoded(pctx, pipeline.Origin{Pos: it.seq, Subject: it.subject}, it.data, &it.ev, it.err); err != nil {
 					runErr = err
 					break loop
 				}
