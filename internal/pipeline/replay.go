@@ -45,29 +45,16 @@ func Replay(ctx context.Context, p *Processor, source string, r io.Reader, maxPa
 	}
 	ctx, cancel := context.WithCancel(ctx)
 	defer cancel()
-	full := make(chan *chunk, 4)
-	free := make(chan *chunk, 6)
-	for range cap(free) {
-		free <- &chunk{}
+	in := readFile(ctx, br, p.NewDecoder(), cp.Next, pending, maxPayload)
+	for c := range in.Chunks() {
+		_, err := p.OfferChunk(ctx, c, 0)
+		in.Release(c)
+		if err != nil {
+			return Checkpoint{}, err
+		}
 	}
-	go readChunks(ctx, br, p.NewDecoder(), cp.Next, pending, maxPayload, full, free)
-	for c := range full {
-		if c.err != nil {
-			return Checkpoint{}, fmt.Errorf("replay %s: %w", source, c.err)
-		}
-		for i := range c.items {
-			it := &c.items[i]
-			payload := c.buf[it.off:it.end]
-			if it.readmit {
-				err = p.ReadmitDecoded(it.pos, payload, &it.ev, it.err)
-			} else {
-				err = p.OfferDecoded(ctx, Origin{Pos: it.pos}, payload, &it.ev, it.err)
-			}
-			if err != nil {
-				return Checkpoint{}, err
-			}
-		}
-		free <- c
+	if err := in.Err(); err != nil {
+		return Checkpoint{}, fmt.Errorf("replay %s: %w", source, err)
 	}
 	if err := ctx.Err(); err != nil {
 		return Checkpoint{}, err
@@ -80,48 +67,53 @@ func Replay(ctx context.Context, p *Processor, source string, r io.Reader, maxPa
 
 const chunkLines = 512
 
-type chunkItem struct {
-	pos      uint64
-	off, end int
-	ev       event.Event
-	err      error
-	readmit  bool
+// fileInput is the InputSource of a replay: a goroutine reads lines, skips
+// those committed before (readmitting the pending ones), decodes the rest
+// and hands them over in chunks.
+type fileInput struct {
+	pool *ChunkPool
+	out  chan *Chunk
+	err  error // set before out is closed
 }
 
-type chunk struct {
-	buf   []byte
-	items []chunkItem
-	err   error
+var _ InputSource = (*fileInput)(nil)
+
+func (f *fileInput) Chunks() <-chan *Chunk { return f.out }
+func (f *fileInput) Err() error            { return f.err }
+func (f *fileInput) Release(c *Chunk)      { f.pool.Put(c) }
+
+// readFile starts reading br after position next (but for pending).
+func readFile(ctx context.Context, br *bufio.Reader, dec *event.Decoder, next uint64, pending map[uint64]bool, maxPayload int) *fileInput {
+	f := &fileInput{pool: NewChunkPool(6), out: make(chan *Chunk, 4)}
+	go f.read(ctx, br, dec, next, pending, maxPayload)
+	return f
 }
 
-// readChunks reads lines, skips those committed before, decodes the rest and
-// sends them in chunks. It closes full when the input ends or fails.
-func readChunks(ctx context.Context, br *bufio.Reader, dec *event.Decoder, next uint64, pending map[uint64]bool,
-	maxPayload int, full chan<- *chunk, free <-chan *chunk) {
-	defer close(full)
-	var (
-		pos  uint64
-		line []byte
-		c    *chunk
-	)
-	get := func() bool {
+func (f *fileInput) read(ctx context.Context, br *bufio.Reader, dec *event.Decoder, next uint64, pending map[uint64]bool, maxPayload int) {
+	defer close(f.out)
+	c, ok := f.pool.Get(ctx)
+	if !ok {
+		return
+	}
+	send := func() bool {
 		select {
-		case c = <-free:
-			c.buf, c.items, c.err = c.buf[:0], c.items[:0], nil
-			return true
+		case f.out <- c:
 		case <-ctx.Done():
 			return false
 		}
+		c, ok = f.pool.Get(ctx)
+		return ok
 	}
-	if !get() {
-		return
-	}
+	var (
+		pos  uint64
+		line []byte
+	)
 	for {
 		var err error
 		line, err = readLine(br, line[:0], maxPayload)
 		if len(line) == 0 && err != nil {
 			if !errors.Is(err, io.EOF) {
-				c.err = fmt.Errorf("line %d: %w", pos+1, err)
+				f.err = fmt.Errorf("line %d: %w", pos+1, err)
 			}
 			break
 		}
@@ -137,27 +129,20 @@ func readChunks(ctx context.Context, br *bufio.Reader, dec *event.Decoder, next 
 			}
 			readmit = true
 		}
-		off := len(c.buf)
-		c.buf = append(c.buf, payload...)
 		ev, derr := dec.Decode(payload)
-		c.items = append(c.items, chunkItem{pos: pos, off: off, end: len(c.buf), ev: ev, err: derr, readmit: readmit})
-		if len(c.items) == chunkLines {
-			select {
-			case full <- c:
-			case <-ctx.Done():
-				return
-			}
-			if !get() {
-				return
-			}
+		c.AddCopy(Input{Origin: Origin{Pos: pos}, Payload: payload, Event: ev, Err: derr, Readmit: readmit})
+		if len(c.Inputs) == chunkLines && !send() {
+			return
 		}
 		if errors.Is(err, io.EOF) {
 			break
 		}
 	}
-	select {
-	case full <- c:
-	case <-ctx.Done():
+	if len(c.Inputs) > 0 {
+		select {
+		case f.out <- c:
+		case <-ctx.Done():
+		}
 	}
 }
 

@@ -226,12 +226,9 @@ func (w *Worker) Run(ctx context.Context, p *pipeline.Processor) error {
 	nchunks := max(2, w.cfg.InFlight/chunkSize)
 	f := &fetcher{
 		w: w, cons: cons, next: start, dec: p.NewDecoder(),
-		out:  make(chan *chunk, nchunks),
-		free: make(chan *chunk, nchunks+1),
+		out:  make(chan *pipeline.Chunk, nchunks),
+		pool: pipeline.NewChunkPool(nchunks + 1),
 		size: chunkSize,
-	}
-	for range nchunks + 1 {
-		f.free <- &chunk{}
 	}
 	fetchCtx, stopFetch := context.WithCancel(ctx)
 	defer stopFetch()
@@ -249,24 +246,18 @@ loop:
 		select {
 		case <-ctx.Done():
 			break loop
-		case c, ok := <-f.out:
+		case c, ok := <-f.Chunks():
 			if !ok {
-				runErr = f.err
+				runErr = f.Err()
 				break loop
 			}
-			for i := range c.items {
-				it := &c.items[i]
-				if it.seq < next {
-					continue
-				}
-				if err := p.OfferDecoded(pctx, pipeline.Origin{Pos: it.seq, Subject: it.subject}, it.data, &it.ev, it.err); err != nil {
-					runErr = err
-					break loop
-				}
-				next = it.seq + 1
+			var err error
+			next, err = p.OfferChunk(pctx, c, next)
+			f.Release(c)
+			if err != nil {
+				runErr = err
+				break loop
 			}
-			c.reset()
-			f.free <- c
 		case <-tick.C:
 			if err := p.Tick(pctx, w.tickClock()); err != nil {
 				runErr = err
@@ -284,9 +275,8 @@ loop:
 		}
 	}
 	stopFetch()
-	for c := range f.out { // until the fetcher has stopped
-		c.reset()
-		f.free <- c
+	for c := range f.Chunks() { // until the fetcher has stopped
+		f.Release(c)
 	}
 	if runErr != nil {
 		return runErr
@@ -532,36 +522,26 @@ func (w *Worker) ackUpTo(seq uint64) {
 var ackBody = []byte("+ACK")
 
 // chunk carries fetched, decoded messages to the processing goroutine.
-type chunk struct {
-	items   []item
-	replies []delivery
-}
+var _ pipeline.InputSource = (*fetcher)(nil)
 
-type item struct {
-	seq     uint64
-	subject string
-	data    []byte
-	ev      event.Event
-	err     error
-}
+// Chunks, Err and Release make the fetcher a pipeline.InputSource.
+func (f *fetcher) Chunks() <-chan *pipeline.Chunk { return f.out }
+func (f *fetcher) Err() error                     { return f.err }
+func (f *fetcher) Release(c *pipeline.Chunk)      { f.pool.Put(c) }
 
-func (c *chunk) reset() {
-	clear(c.items)
-	c.items = c.items[:0]
-	c.replies = c.replies[:0]
-}
-
-// fetcher pulls batches, checks delivery order, decodes and forwards.
+// fetcher pulls batches, checks delivery order, decodes and forwards: the
+// pipeline.InputSource of a live worker.
 type fetcher struct {
-	w    *Worker
-	cons jetstream.Consumer
-	next uint64 // first stream sequence not yet forwarded
-	dseq uint64 // last delivery sequence seen since the consumer was positioned
-	dec  *event.Decoder
-	out  chan *chunk
-	free chan *chunk
-	size int
-	err  error // why run ended early (set before out is closed)
+	w       *Worker
+	cons    jetstream.Consumer
+	next    uint64 // first stream sequence not yet forwarded
+	dseq    uint64 // last delivery sequence seen since the consumer was positioned
+	dec     *event.Decoder
+	out     chan *pipeline.Chunk
+	pool    *pipeline.ChunkPool
+	replies []delivery // of the chunk being filled
+	size    int
+	err     error // why run ended early (set before out is closed)
 
 	lastInfo   time.Time
 	lastErrLog time.Time
@@ -618,14 +598,15 @@ func (f *fetcher) run(ctx context.Context) {
 // rest of the batch without forwarding it.
 func (f *fetcher) forward(ctx context.Context, batch jetstream.MessageBatch) (n int, gap bool) {
 	msgs := batch.Messages()
-	var c *chunk
+	var c *pipeline.Chunk
 	var skipped jetstream.Msg
 	stopped := false
 	send := func() {
-		if c == nil || len(c.items) == 0 {
+		if c == nil || len(c.Inputs) == 0 {
 			return
 		}
-		f.w.register(c.replies)
+		f.w.register(f.replies)
+		f.replies = f.replies[:0]
 		select {
 		case f.out <- c:
 			c = nil
@@ -660,9 +641,8 @@ func (f *fetcher) forward(ctx context.Context, batch jetstream.MessageBatch) (n 
 			continue
 		}
 		if c == nil {
-			select {
-			case c = <-f.free:
-			case <-ctx.Done():
+			var ok bool
+			if c, ok = f.pool.Get(ctx); !ok {
 				stopped = true
 				continue
 			}
@@ -673,10 +653,10 @@ func (f *fetcher) forward(ctx context.Context, batch jetstream.MessageBatch) (n 
 		if derr == nil {
 			derr = f.w.cfg.CheckSubject(msg.Subject(), &ev)
 		}
-		c.items = append(c.items, item{seq: seq, subject: msg.Subject(), data: data, ev: ev, err: derr})
-		c.replies = append(c.replies, delivery{seq: seq, reply: msg.Reply()})
+		c.Add(pipeline.Input{Origin: pipeline.Origin{Pos: seq, Subject: msg.Subject()}, Payload: data, Event: ev, Err: derr})
+		f.replies = append(f.replies, delivery{seq: seq, reply: msg.Reply()})
 		n++
-		if len(c.items) >= f.size || len(msgs) == 0 {
+		if len(c.Inputs) >= f.size || len(msgs) == 0 {
 			send()
 		}
 	}
@@ -684,8 +664,8 @@ func (f *fetcher) forward(ctx context.Context, batch jetstream.MessageBatch) (n 
 		send()
 	}
 	if c != nil { // not sent: ctx ended
-		c.reset()
-		f.free <- c
+		f.replies = f.replies[:0]
+		f.pool.Put(c)
 	}
 	if skipped != nil {
 		if err := skipped.Ack(); err != nil {
