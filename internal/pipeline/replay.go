@@ -195,6 +195,8 @@ type RejectFile struct {
 	path string
 	max  int64 // rotate at start when the committed file is larger; 0 = never
 	keep int   // rotated files kept (path.1 … path.keep)
+
+	acceptLoss bool // AcceptLoss
 }
 
 // OpenRejectFile opens (creating) path for appending rejects.
@@ -213,6 +215,14 @@ func OpenRejectFile(path string) (*RejectFile, error) {
 // recognised by path.1 having exactly the committed length.
 func (r *RejectFile) Rotate(maxBytes int64, keep int) { r.max, r.keep = maxBytes, keep }
 
+// ErrRejectsChanged is returned by Reset when the rejects file is shorter
+// than its committed length.
+var ErrRejectsChanged = errors.New("rejects file changed")
+
+// AcceptLoss lets Reset go on with a rejects file shorter than committed
+// (deleted or cut by hand), appending after what is left.
+func (r *RejectFile) AcceptLoss() { r.acceptLoss = true }
+
 // Reset truncates the file to mark, dropping records written after the last
 // commit (they will be written again when their inputs are read again), and
 // rotates the file if it has grown past the limit.
@@ -224,8 +234,11 @@ func (r *RejectFile) Reset(mark int64) error {
 	if st.Size() < mark {
 		if prev, err := os.Stat(r.path + ".1"); err == nil && prev.Size() == mark && st.Size() == 0 {
 			mark = 0 // rotated after the last commit: the new file starts empty
+		} else if r.acceptLoss {
+			mark = st.Size() // go on after what is left; the counts keep the lost records
 		} else {
-			return fmt.Errorf("rejects file %s is shorter (%d bytes) than committed (%d bytes): it was changed outside touchledger", r.f.Name(), st.Size(), mark)
+			return fmt.Errorf("%w: %s is shorter (%d bytes) than committed (%d bytes), changed or deleted outside touchledger: restore it, or run again with --rejects-lost to go on with it as it is (the missing records stay lost; the reject counts keep them)",
+				ErrRejectsChanged, r.f.Name(), st.Size(), mark)
 		}
 	}
 	if r.max > 0 && mark > r.max {

@@ -18,14 +18,24 @@ import (
 // ParseTime reads a window edge the way `query --from/--to` does: an RFC 3339
 // time (any zone, returned in UTC) or a date, meaning 00:00 UTC.
 func ParseTime(s string) (time.Time, error) {
-	if t, err := time.Parse(time.RFC3339Nano, s); err == nil {
-		return t.UTC(), nil
+	t, err := time.Parse(time.RFC3339Nano, s)
+	if err == nil {
+		t = t.UTC()
+	} else if t, err = time.Parse("2006-01-02", s); err != nil {
+		return time.Time{}, fmt.Errorf("%q is neither an RFC 3339 time (2026-10-01T12:00:00Z) nor a date (2026-10-01)", s)
 	}
-	if t, err := time.Parse("2006-01-02", s); err == nil {
-		return t, nil
+	// Event times lie in these years (the clock guard, internal/pipeline):
+	// 0001-01-01, the zero time, would otherwise read as "not given".
+	if t.Before(earliestTime) || !t.Before(latestTime) {
+		return time.Time{}, fmt.Errorf("%q is outside the event times, 1970-01-01 to 2099-12-31 (leave from out to start at the beginning)", s)
 	}
-	return time.Time{}, fmt.Errorf("%q is neither an RFC 3339 time (2026-10-01T12:00:00Z) nor a date (2026-10-01)", s)
+	return t, nil
 }
+
+var (
+	earliestTime = time.Date(1970, 1, 1, 0, 0, 0, 0, time.UTC)
+	latestTime   = time.Date(2100, 1, 1, 0, 0, 0, 0, time.UTC)
+)
 
 // ParseSpan reads the window parameters last, from and to (empty = not
 // given) with the rules of `query`: last is a duration such as 7d or 12h
