@@ -256,6 +256,7 @@ func replayFile(ctx context.Context, cfg config.Config, dir, path, rejectsPath, 
 	defer rf.Close()
 	pcfg := pipeline.FromConfig(cfg)
 	pcfg.Pseudonyms = ps
+	pcfg.Disk = pipeline.DiskGuard(dir, cfg)
 	p, err := pipeline.New(st, pcfg, rf, log)
 	if err != nil {
 		return err

@@ -93,6 +93,13 @@ type Store struct {
 	// CommitInterval is the longest wall time between commits while input
 	// flows. Default 1s.
 	CommitInterval Duration `yaml:"commit_interval"`
+	// MinFreeMiB and MinFreePercent make the free-space reserve of the
+	// data directory's disk: the larger of MinFreeMiB and MinFreePercent %
+	// of the disk. Below it a live worker stops fetching (and /readyz says
+	// not ready) until space returns, and a replay stops after committing
+	// what it read. Default 1024 MiB and 5 %.
+	MinFreeMiB     int     `yaml:"min_free_mib"`
+	MinFreePercent float64 `yaml:"min_free_percent"`
 }
 
 // Limits bound the size of an input event, in bytes; larger ones are
@@ -262,6 +269,8 @@ func Default() Config {
 			IndexCacheMiB:  16,
 			CommitEvents:   200_000,
 			CommitInterval: Duration(time.Second),
+			MinFreeMiB:     1024,
+			MinFreePercent: 5,
 		},
 		Privacy: Privacy{KeyVersion: 1},
 		Rejects: Rejects{MaxMiB: 64, Keep: 3},

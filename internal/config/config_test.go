@@ -54,7 +54,7 @@ func TestDefault(t *testing.T) {
 				{"day", Duration(24 * time.Hour), 0},
 			},
 			CacheUsers: 100000, MemtableMiB: 64, BlockCacheMiB: 32, IndexCacheMiB: 16,
-			CommitEvents: 200000, CommitInterval: Duration(time.Second),
+			CommitEvents: 200000, CommitInterval: Duration(time.Second), MinFreeMiB: 1024, MinFreePercent: 5,
 		},
 		Limits:  Limits{MaxPayload: 65536, MaxID: 128, MaxUser: 256, MaxName: 128},
 		Privacy: Privacy{KeyVersion: 1},

@@ -25,7 +25,17 @@ import (
 //
 // Reading and decoding run on their own goroutine, in chunks, ahead of the
 // processing goroutine.
+//
+// With Config.Disk set, a disk below its reserve stops the replay before
+// anything is read, or between two chunks after committing what was read:
+// it returns state.ErrDiskLow, and running it again once space is back
+// resumes from that commit.
 func Replay(ctx context.Context, p *Processor, source string, r io.Reader, maxPayload int) (Checkpoint, error) {
+	if p.cfg.Disk != nil {
+		if _, err := p.cfg.Disk.Check(); err != nil {
+			return Checkpoint{}, fmt.Errorf("replay %s: %w", source, err)
+		}
+	}
 	cp, err := p.Begin(source)
 	if err != nil {
 		return Checkpoint{}, err
@@ -54,6 +64,14 @@ func Replay(ctx context.Context, p *Processor, source string, r io.Reader, maxPa
 	for c := range full {
 		if c.err != nil {
 			return Checkpoint{}, fmt.Errorf("replay %s: %w", source, c.err)
+		}
+		if p.cfg.Disk != nil {
+			if _, derr := p.cfg.Disk.Check(); derr != nil {
+				if err := p.Finish(ctx, false); err != nil {
+					return Checkpoint{}, err
+				}
+				return Checkpoint{}, fmt.Errorf("replay %s stopped after committing what was read (run it again when space is back to resume): %w", source, derr)
+			}
 		}
 		for i := range c.items {
 			it := &c.items[i]
