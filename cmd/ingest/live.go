@@ -187,6 +187,13 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 	if err != nil {
 		return err
 	}
+	disk := pipeline.DiskGuard(dir, cfg)
+	if disk != nil {
+		w.SetDiskGuard(disk)
+		if _, err := disk.Check(); err != nil {
+			log.Error("disk space low at start: the worker waits for space before fetching", "err", err)
+		}
+	}
 	var (
 		p *pipeline.Processor
 		m *metrics.Metrics
@@ -228,6 +235,21 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 		return err
 	}
 	m = metrics.New(reg, mopts)
+	if disk != nil {
+		reg.MustRegister(
+			prometheus.NewGaugeFunc(prometheus.GaugeOpts{Name: "touchledger_disk_free_bytes", Help: "Free bytes of the data directory's disk, as of the last look (before each fetch)."},
+				func() float64 { f, _ := disk.Free(); return float64(f) }),
+			prometheus.NewGaugeFunc(prometheus.GaugeOpts{Name: "touchledger_disk_reserve_bytes", Help: "The free-space reserve (store.min_free_mib, store.min_free_percent)."},
+				func() float64 { _, r := disk.Free(); return float64(r) }),
+			prometheus.NewGaugeFunc(prometheus.GaugeOpts{Name: "touchledger_disk_low", Help: "1 while free space is below the reserve and the worker does not fetch."},
+				func() float64 {
+					if disk.Low() {
+						return 1
+					}
+					return 0
+				}),
+		)
+	}
 	if l.httpAddr != "off" && l.httpAddr != "" {
 		// /admin/backup always needs a token: the HTTP token, or one
 		// generated into the directory.
@@ -247,7 +269,7 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 		h := web.NewHandler(web.Options{
 			Gatherer:    reg,
 			OpenQuerier: openQuerier,
-			Ready:       web.ReadyAfterCommit(p, idle),
+			Ready:       readyUnlessDiskLow(disk, web.ReadyAfterCommit(p, idle)),
 			Token:       l.httpToken,
 			Log:         log,
 			Page:        dashboard.NewHandler(dashboard.Options{Open: openQuerier, Title: "touchledger", Truth: truth}),
@@ -336,6 +358,18 @@ func runLive(ctx context.Context, cfg config.Config, dir string, l liveFlags, st
 	fmt.Fprintf(stdout, "stopped: accepted %d, duplicate %d, rejected %d, late %d, buffered %d (ran %s)\n",
 		c.Accepted, c.Duplicate, c.RejectedTotal(), c.Late, s.Buffered, time.Since(start).Round(time.Second))
 	return nil
+}
+
+// readyUnlessDiskLow is ready, unless the disk is below its reserve (the
+// worker then does not fetch).
+func readyUnlessDiskLow(disk *state.DiskGuard, ready func(context.Context) error) func(context.Context) error {
+	return func(ctx context.Context) error {
+		if disk != nil && disk.Low() {
+			free, reserve := disk.Free()
+			return fmt.Errorf("%w: %d MiB free, reserve %d MiB; not fetching", state.ErrDiskLow, free>>20, reserve>>20)
+		}
+		return ready(ctx)
+	}
 }
 
 // drain flushes the connection (the last acknowledgements) and closes it.

@@ -468,7 +468,9 @@ func TestEmbeddedKillOrderedSend(t *testing.T) {
 	var outside, inside int
 	publish := func(i int) {
 		send(parts[i])
-		_, d := send(valid(parts[i][:40]))
+		// The slice's last lines were published moments ago: inside the
+		// window.
+		_, d := send(valid(parts[i][len(parts[i])-40:]))
 		inside += d
 		if i >= 2 {
 			s, _ := send(valid(parts[i-2][len(parts[i-2])/2:][:60]))

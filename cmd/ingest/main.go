@@ -129,6 +129,7 @@ func run(args []string, stdout, stderr io.Writer) int {
 		dataDir     = fs.String("data", "", "data `directory` (created if missing)")
 		replay      = fs.String("replay", "", "JSON-lines `file` to replay; - for standard input")
 		rejectsPath = fs.String("rejects", "", "rejects `file` (default DIR/rejects.jsonl)")
+		rejectsLost = fs.Bool("rejects-lost", false, "go on when the rejects file is shorter than committed (deleted or cut by hand); its missing records stay lost")
 		source      = fs.String("source", "", "`name` identifying the input for resuming (default: the file's absolute path, or \"stdin\")")
 		configPath  = fs.String("config", "", "YAML configuration `file` (defaults apply without it)")
 		printConfig = fs.Bool("print-config", false, "print the effective configuration and exit")
@@ -205,14 +206,14 @@ func run(args []string, stdout, stderr io.Writer) int {
 		level = slog.LevelDebug
 	}
 	log := slog.New(slog.NewTextHandler(stderr, &slog.HandlerOptions{Level: level}))
-	if err := replayFile(ctx, cfg, *dataDir, *replay, *rejectsPath, *source, stdout, log); err != nil {
+	if err := replayFile(ctx, cfg, *dataDir, *replay, *rejectsPath, *source, *rejectsLost, stdout, log); err != nil {
 		fmt.Fprintf(stderr, "ingest: %v\n", err)
 		return 1
 	}
 	return 0
 }
 
-func replayFile(ctx context.Context, cfg config.Config, dir, path, rejectsPath, source string, stdout io.Writer, log *slog.Logger) error {
+func replayFile(ctx context.Context, cfg config.Config, dir, path, rejectsPath, source string, rejectsLost bool, stdout io.Writer, log *slog.Logger) error {
 	var in io.Reader
 	if path == "-" {
 		in = os.Stdin
@@ -255,9 +256,13 @@ func replayFile(ctx context.Context, cfg config.Config, dir, path, rejectsPath, 
 		return err
 	}
 	rf.Rotate(int64(cfg.Rejects.MaxMiB)<<20, cfg.Rejects.Keep)
+	if rejectsLost {
+		rf.AcceptLoss()
+	}
 	defer rf.Close()
 	pcfg := pipeline.FromConfig(cfg)
 	pcfg.Pseudonyms = ps
+	pcfg.Disk = pipeline.DiskGuard(dir, cfg)
 	p, err := pipeline.New(st, pcfg, rf, log)
 	if err != nil {
 		return err

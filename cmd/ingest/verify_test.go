@@ -62,3 +62,36 @@ func TestVerifyAndRefuseCorruption(t *testing.T) {
 		t.Errorf("damaged table removed: %v", err)
 	}
 }
+
+// TestDeletedRejectsFileSaysHow (issue 9 item 10): a deleted rejects file
+// stops the next replay with a message saying how to go on, and
+// --rejects-lost goes on (the old message only said the file "was changed
+// outside touchledger").
+func TestDeletedRejectsFileSaysHow(t *testing.T) {
+	tmp := t.TempDir()
+	dir := filepath.Join(tmp, "data")
+	write := func(name, body string) string {
+		p := filepath.Join(tmp, name)
+		os.WriteFile(p, []byte(body), 0o644)
+		return p
+	}
+	a := write("a.jsonl", `{"id":"a1","user":"u","time":"2026-10-01T10:00:00Z","kind":"action","action":"x"}`+"\nnot json\n")
+	b := write("b.jsonl", `{"id":"b1","user":"u","time":"2026-10-01T11:00:00Z","kind":"action","action":"x"}`+"\nnot json either\n")
+	var out, errb bytes.Buffer
+	if code := run([]string{"--data", dir, "--replay", a}, &out, &errb); code != 0 {
+		t.Fatalf("replay a: %s", errb.String())
+	}
+	os.Remove(filepath.Join(dir, "rejects.jsonl"))
+	errb.Reset()
+	if code := run([]string{"--data", dir, "--replay", b}, &out, &errb); code != 1 || !strings.Contains(errb.String(), "--rejects-lost") {
+		t.Errorf("replay b after the rejects file was deleted: exit %d, %q", code, errb.String())
+	}
+	out.Reset()
+	if code := run([]string{"--data", dir, "--replay", b, "--rejects-lost"}, &out, &errb); code != 0 || !strings.Contains(out.String(), "accepted 1") {
+		t.Errorf("replay b with --rejects-lost: exit %d, %q %q", code, out.String(), errb.String())
+	}
+	got, _ := os.ReadFile(filepath.Join(dir, "rejects.jsonl"))
+	if !strings.Contains(string(got), "not json either") || strings.Count(string(got), "\n") != 1 {
+		t.Errorf("rejects file %q: want the one new record", got)
+	}
+}

@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"io"
 	"os"
+	"regexp"
 	"slices"
 	"strings"
 	"time"
@@ -92,6 +93,13 @@ type Store struct {
 	// CommitInterval is the longest wall time between commits while input
 	// flows. Default 1s.
 	CommitInterval Duration `yaml:"commit_interval"`
+	// MinFreeMiB and MinFreePercent make the free-space reserve of the
+	// data directory's disk: the larger of MinFreeMiB and MinFreePercent %
+	// of the disk. Below it a live worker stops fetching (and /readyz says
+	// not ready) until space returns, and a replay stops after committing
+	// what it read. Default 1024 MiB and 5 %.
+	MinFreeMiB     int     `yaml:"min_free_mib"`
+	MinFreePercent float64 `yaml:"min_free_percent"`
 }
 
 // Limits bound the size of an input event, in bytes; larger ones are
@@ -256,6 +264,8 @@ func Default() Config {
 			IndexCacheMiB:  16,
 			CommitEvents:   200_000,
 			CommitInterval: Duration(time.Second),
+			MinFreeMiB:     1024,
+			MinFreePercent: 5,
 		},
 		Privacy: Privacy{KeyVersion: 1},
 		Rejects: Rejects{MaxMiB: 64, Keep: 3},
@@ -287,7 +297,7 @@ func Parse(data []byte) (Config, error) {
 	switch err := dec.Decode(&c); {
 	case errors.Is(err, io.EOF): // no document: the defaults
 	case err != nil:
-		return Config{}, fmt.Errorf("parse yaml: %w", err)
+		return Config{}, fmt.Errorf("parse yaml: %w", unknownKeys(err))
 	default:
 		var next yaml.Node
 		if err := dec.Decode(&next); !errors.Is(err, io.EOF) {
@@ -298,6 +308,32 @@ func Parse(data []byte) (Config, error) {
 		return Config{}, err
 	}
 	return c, nil
+}
+
+// sections names the YAML section of each configuration struct, for
+// unknownKeys.
+var sections = map[string]string{
+	"Config": "", "Alert": "alert.", "Store": "store.", "Limits": "limits.", "Privacy": "privacy.",
+	"Rejects": "rejects.", "Clock": "clock.", "PositionWeights": "position_weights.", "Resolution": "store.resolutions[].",
+}
+
+var notFound = regexp.MustCompile(`^line (\d+): field (\S+) not found in type config\.(\w+)$`)
+
+// unknownKeys rewrites yaml's "field x not found in type config.Store"
+// into the key's name ("unknown key store.x").
+func unknownKeys(err error) error {
+	var te *yaml.TypeError
+	if !errors.As(err, &te) {
+		return err
+	}
+	msgs := make([]string, 0, len(te.Errors))
+	for _, m := range te.Errors {
+		if g := notFound.FindStringSubmatch(m); g != nil {
+			m = fmt.Sprintf("line %s: unknown key %s%s (docs/configuration.md lists the keys)", g[1], sections[g[3]], g[2])
+		}
+		msgs = append(msgs, m)
+	}
+	return errors.New(strings.Join(msgs, "; "))
 }
 
 // header opens the YAML written by Config.YAML.

@@ -53,7 +53,7 @@ func TestDefault(t *testing.T) {
 				{"day", Duration(24 * time.Hour), 0},
 			},
 			CacheUsers: 100000, MemtableMiB: 64, BlockCacheMiB: 32, IndexCacheMiB: 16,
-			CommitEvents: 200000, CommitInterval: Duration(time.Second),
+			CommitEvents: 200000, CommitInterval: Duration(time.Second), MinFreeMiB: 1024, MinFreePercent: 5,
 		},
 		Limits:  Limits{MaxPayload: 65536, MaxID: 128, MaxUser: 256, MaxName: 128},
 		Privacy: Privacy{KeyVersion: 1},
@@ -166,9 +166,9 @@ func TestParseErrors(t *testing.T) {
 		text string
 		want string // a part of the error text
 	}{
-		{"unknown top-level key", "sesion_gap: 45m\n", "field sesion_gap not found"},
-		{"unknown nested key", "alert:\n  lamda: 0.3\n", "field lamda not found"},
-		{"unknown key in a resolution", "store:\n  resolutions:\n    - {name: m, step: 1m, keep: 1d}\n", "field keep not found"},
+		{"unknown top-level key", "sesion_gap: 45m\n", "unknown key sesion_gap"},
+		{"unknown nested key", "alert:\n  lamda: 0.3\n", "unknown key alert.lamda"},
+		{"unknown key in a resolution", "store:\n  resolutions:\n    - {name: m, step: 1m, keep: 1d}\n", "unknown key store.resolutions[].keep"},
 		{"duration without unit", "session_gap: 30\n", `line 1: invalid duration "30"`},
 		{"duration as a list", "session_gap: [30m]\n", "line 1: a duration must be text"},
 		{"negative duration", "lateness: -5m\n", "has a sign"},
@@ -392,4 +392,23 @@ func TestYAMLCommentsEveryKey(t *testing.T) {
 func nan() float64 {
 	zero := 0.0
 	return zero / zero
+}
+
+// TestUnknownKeyNamed (issue 9 item 10): an unknown key is named with its
+// section and the file, not as "field bogus_key not found in type
+// config.Config".
+func TestUnknownKeyNamed(t *testing.T) {
+	path := filepath.Join(t.TempDir(), "tl.yaml")
+	if err := os.WriteFile(path, []byte("bogus_key: 1\nstore:\n  cache_user: 5\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	_, err := Load(path)
+	for _, want := range []string{"configuration " + path, "line 1: unknown key bogus_key", "line 3: unknown key store.cache_user"} {
+		if err == nil || !strings.Contains(err.Error(), want) {
+			t.Errorf("Load: %v, want %q", err, want)
+		}
+	}
+	if err != nil && strings.Contains(err.Error(), "not found in type") {
+		t.Errorf("Load: %v still names a Go type", err)
+	}
 }

@@ -41,6 +41,8 @@ var keyDocs = []struct{ Key, Doc string }{
 	{"store.index_cache_mib", `Badger index cache in MiB (at least 1, so memory stays bounded).`},
 	{"store.commit_events", `Most input events one commit covers.`},
 	{"store.commit_interval", `Longest wall time between commits while input flows.`},
+	{"store.min_free_mib", `Free-space reserve of the data directory's disk, in MiB: the reserve is the larger of this and min_free_percent. Below it a live worker stops fetching and /readyz is not ready until space returns; a replay stops after committing what it read (run it again to resume). 0 with min_free_percent 0 disables.`},
+	{"store.min_free_percent", `Free-space reserve as a percentage of the disk's size (see min_free_mib).`},
 	{"limits", `Size limits of an input event, in bytes; larger events are rejected (too_large or bad_field).`},
 	{"limits.max_payload", `Largest payload, at least 256.`},
 	{"limits.max_id", `Longest event id.`},

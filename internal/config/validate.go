@@ -99,6 +99,10 @@ func (c Config) Validate() error {
 		v.add("alert.interval", "must be a multiple of the finest store step (%s), got %s", s.Resolutions[0].Step, a.Interval)
 	}
 	v.atLeast("store.cache_users", s.CacheUsers, 1)
+	v.atLeast("store.min_free_mib", s.MinFreeMiB, 0)
+	if !(s.MinFreePercent >= 0 && s.MinFreePercent < 100) {
+		v.add("store.min_free_percent", "must be from 0 to below 100, got %s", number(s.MinFreePercent))
+	}
 	v.atLeast("store.memtable_mib", s.MemtableMiB, 8)
 	v.atLeast("store.block_cache_mib", s.BlockCacheMiB, 1)
 	v.atLeast("store.index_cache_mib", s.IndexCacheMiB, 1)

@@ -105,9 +105,15 @@ func (d *Decoder) scanEvent(b []byte) *RejectError {
 		if i >= len(b) {
 			return reject(ReasonBadJSON, "", "payload is empty")
 		}
-		_, typ, _ := scanValue(b, i, 1)
-		if typ == absent {
+		end, typ, bad := scanValue(b, i, 1)
+		switch {
+		case typ == absent:
 			return reject(ReasonBadJSON, "", unexpected(b, i, "'{'").message())
+		case bad.what != "":
+			// "nonsense" or "tomato" start like null or true: not JSON at all.
+			return reject(ReasonBadJSON, "", bad.message())
+		case skipSpace(b, end) < len(b):
+			return reject(ReasonBadJSON, "", unexpected(b, skipSpace(b, end), "the end of the payload").message())
 		}
 		return reject(ReasonBadJSON, "", "payload is a json "+typ.String()+", not an object")
 	}

@@ -367,3 +367,25 @@ func unquoted(msg string) string {
 	}
 	return strings.TrimFunc(b.String(), unicode.IsSpace)
 }
+
+// TestNotJSONSaysSo (issue 9 item 10): input that only starts like a JSON
+// literal is reported as not JSON; on the old code "nonsense" was "a json
+// null" and "tomato" "a json boolean".
+func TestNotJSONSaysSo(t *testing.T) {
+	d := NewDecoder(DefaultLimits(), "")
+	for in, want := range map[string]string{
+		"nonsense":      "payload is not valid json",
+		"tomato soup":   "payload is not valid json",
+		"false alarm":   "payload is not valid json",
+		"null":          "payload is a json null, not an object",
+		" true ":        "payload is a json boolean, not an object",
+		"[1,2]":         "payload is a json array, not an object",
+		`"quoted" text`: "payload is not valid json",
+	} {
+		_, err := d.Decode([]byte(in))
+		var re *RejectError
+		if !errors.As(err, &re) || re.Reason != ReasonBadJSON || !strings.Contains(re.Msg, want) {
+			t.Errorf("%q: %v, want bad_json %q", in, err, want)
+		}
+	}
+}

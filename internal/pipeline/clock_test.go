@@ -9,6 +9,7 @@ import (
 	"path/filepath"
 	"reflect"
 	"strings"
+	"sync/atomic"
 	"testing"
 	"time"
 
@@ -224,5 +225,68 @@ func TestClockMaxFutureLive(t *testing.T) {
 	}
 	if _, ms := p.Watermark(); ms != now.Add(9*time.Minute).UnixNano() {
 		t.Errorf("largest time seen %s, want the clock + 9 m", time.Unix(0, ms).UTC())
+	}
+}
+
+// TestReplayStopsOnLowDisk (issue 9 item 4): a replay refuses to start
+// below the free-space reserve, stops between chunks after committing what
+// it read when space runs low, and resumes when run again: the counts then
+// equal one clean replay.
+func TestReplayStopsOnLowDisk(t *testing.T) {
+	input := demoInput(t, 1500, 4)
+	cfg := testConfig()
+	cfg.CommitEvents = 500
+	var checks atomic.Int64
+	lowAfter := int64(-1)
+	cfg.Disk = &state.DiskGuard{MinFree: 1 << 30, Stat: func(string) (uint64, uint64, error) {
+		n := checks.Add(1)
+		if lowAfter >= 0 && n > lowAfter {
+			return 1 << 20, 1 << 40, nil
+		}
+		return 10 << 30, 1 << 40, nil
+	}}
+	clean := replayBytes(t, t.TempDir(), testConfig(), "in", input)
+	dir := t.TempDir()
+	run := func() error {
+		st, err := state.Open(context.Background(), state.DefaultOptions(dir))
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer st.Close()
+		p, err := New(st, cfg, nil, nil)
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer p.Close()
+		_, err = Replay(context.Background(), p, "in", bytes.NewReader(input), cfg.Limits.MaxPayload)
+		return err
+	}
+	lowAfter = 0
+	if err := run(); !errors.Is(err, state.ErrDiskLow) {
+		t.Fatalf("replay on a low disk: %v, want ErrDiskLow", err)
+	}
+	checks.Store(0)
+	lowAfter = 3 // a few chunks, then low
+	if err := run(); !errors.Is(err, state.ErrDiskLow) || !strings.Contains(err.Error(), "run it again when space is back") {
+		t.Fatalf("replay running out of space: %v", err)
+	}
+	lowAfter = -1
+	if err := run(); err != nil {
+		t.Fatal(err)
+	}
+	st, err := state.Open(context.Background(), state.DefaultOptions(dir))
+	if err != nil {
+		t.Fatal(err)
+	}
+	r := st.NewReader()
+	b, _ := r.Checkpoint("in")
+	r.Discard()
+	st.Close()
+	var cp Checkpoint
+	if err := cp.UnmarshalBinary(b); err != nil {
+		t.Fatal(err)
+	}
+	if !reflect.DeepEqual(cp.Counts, clean.Counts) {
+		t.Errorf("counts after stopping and resuming %+v, clean %+v", cp.Counts, clean.Counts)
 	}
 }

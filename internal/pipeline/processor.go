@@ -67,6 +67,9 @@ type Config struct {
 	Now       func() time.Time
 	MaxFuture time.Duration // 0 disables
 	MaxJump   time.Duration // 0 disables
+	// Disk, if set, stops a replay below the free-space reserve (Replay).
+	// Live input pauses fetching instead (stream.Worker.SetDiskGuard).
+	Disk *state.DiskGuard
 	// OnCommit, if set, is called after each successful commit with the
 	// committed checkpoint, on the committing goroutine. Live input
 	// acknowledges its messages here.

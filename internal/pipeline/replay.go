@@ -25,7 +25,17 @@ import (
 //
 // Reading and decoding run on their own goroutine, in chunks, ahead of the
 // processing goroutine.
+//
+// With Config.Disk set, a disk below its reserve stops the replay before
+// anything is read, or between two chunks after committing what was read:
+// it returns state.ErrDiskLow, and running it again once space is back
+// resumes from that commit.
 func Replay(ctx context.Context, p *Processor, source string, r io.Reader, maxPayload int) (Checkpoint, error) {
+	if p.cfg.Disk != nil {
+		if _, err := p.cfg.Disk.Check(); err != nil {
+			return Checkpoint{}, fmt.Errorf("replay %s: %w", source, err)
+		}
+	}
 	cp, err := p.Begin(source)
 	if err != nil {
 		return Checkpoint{}, err
@@ -47,6 +57,15 @@ func Replay(ctx context.Context, p *Processor, source string, r io.Reader, maxPa
 	defer cancel()
 	in := readFile(ctx, br, p.NewDecoder(), cp.Next, pending, maxPayload)
 	for c := range in.Chunks() {
+		if p.cfg.Disk != nil {
+			if _, derr := p.cfg.Disk.Check(); derr != nil {
+				in.Release(c)
+				if err := p.Finish(ctx, false); err != nil {
+					return Checkpoint{}, err
+				}
+				return Checkpoint{}, fmt.Errorf("replay %s stopped after committing what was read (run it again when space is back to resume): %w", source, derr)
+			}
+		}
 		_, err := p.OfferChunk(ctx, c, 0)
 		in.Release(c)
 		if err != nil {
@@ -180,6 +199,8 @@ type RejectFile struct {
 	path string
 	max  int64 // rotate at start when the committed file is larger; 0 = never
 	keep int   // rotated files kept (path.1 … path.keep)
+
+	acceptLoss bool // AcceptLoss
 }
 
 // OpenRejectFile opens (creating) path for appending rejects.
@@ -198,6 +219,14 @@ func OpenRejectFile(path string) (*RejectFile, error) {
 // recognised by path.1 having exactly the committed length.
 func (r *RejectFile) Rotate(maxBytes int64, keep int) { r.max, r.keep = maxBytes, keep }
 
+// ErrRejectsChanged is returned by Reset when the rejects file is shorter
+// than its committed length.
+var ErrRejectsChanged = errors.New("rejects file changed")
+
+// AcceptLoss lets Reset go on with a rejects file shorter than committed
+// (deleted or cut by hand), appending after what is left.
+func (r *RejectFile) AcceptLoss() { r.acceptLoss = true }
+
 // Reset truncates the file to mark, dropping records written after the last
 // commit (they will be written again when their inputs are read again), and
 // rotates the file if it has grown past the limit.
@@ -209,8 +238,11 @@ func (r *RejectFile) Reset(mark int64) error {
 	if st.Size() < mark {
 		if prev, err := os.Stat(r.path + ".1"); err == nil && prev.Size() == mark && st.Size() == 0 {
 			mark = 0 // rotated after the last commit: the new file starts empty
+		} else if r.acceptLoss {
+			mark = st.Size() // go on after what is left; the counts keep the lost records
 		} else {
-			return fmt.Errorf("rejects file %s is shorter (%d bytes) than committed (%d bytes): it was changed outside touchledger", r.f.Name(), st.Size(), mark)
+			return fmt.Errorf("%w: %s is shorter (%d bytes) than committed (%d bytes), changed or deleted outside touchledger: restore it, or run again with --rejects-lost to go on with it as it is (the missing records stay lost; the reject counts keep them)",
+				ErrRejectsChanged, r.f.Name(), st.Size(), mark)
 		}
 	}
 	if r.max > 0 && mark > r.max {

@@ -45,6 +45,16 @@ func FromConfig(c config.Config) Config {
 	}
 }
 
+// DiskGuard builds the free-space guard of dir from the configuration's
+// reserve (store.min_free_mib, store.min_free_percent), or nil when both
+// are 0.
+func DiskGuard(dir string, c config.Config) *state.DiskGuard {
+	if c.Store.MinFreeMiB == 0 && c.Store.MinFreePercent == 0 {
+		return nil
+	}
+	return &state.DiskGuard{Dir: dir, MinFree: uint64(c.Store.MinFreeMiB) << 20, MinFreeFraction: c.Store.MinFreePercent / 100}
+}
+
 // StoreOptions builds the store options for dir from the file configuration.
 func StoreOptions(dir string, c config.Config) state.Options {
 	o := state.DefaultOptions(dir)

@@ -231,9 +231,14 @@ func paramNames(ps []Param) string {
 	return strings.Join(names, ", ")
 }
 
-// Epoch is the earliest window edge accepted: the zero time.Time means "not
-// given", so an edge at or before it could not be told apart.
-var Epoch = time.Unix(0, 0).UTC()
+// Epoch and End bound the window edges accepted: event times lie in
+// 1970-01-01 to 2099-12-31 (the clock guard of internal/pipeline), and the
+// zero time.Time means "not given", so an edge at 0001-01-01 could not be
+// told apart.
+var (
+	Epoch = time.Unix(0, 0).UTC()
+	End   = time.Date(2100, 1, 1, 0, 0, 0, 0, time.UTC)
+)
 
 // ParseTime reads a window edge: an RFC 3339 time (any zone, returned in
 // UTC) or a date, meaning 00:00 UTC.
@@ -245,8 +250,8 @@ func ParseTime(s string) (time.Time, error) {
 		}
 	}
 	t = t.UTC()
-	if t.Before(Epoch) {
-		return time.Time{}, fmt.Errorf("%s is before %s, the earliest edge a window may have", t.Format(time.RFC3339), Epoch.Format(time.RFC3339))
+	if t.Before(Epoch) || !t.Before(End) {
+		return time.Time{}, fmt.Errorf("%q is outside the event times, 1970-01-01 to 2099-12-31 (leave from out to start at the beginning)", s)
 	}
 	return t, nil
 }

@@ -282,7 +282,10 @@ func ParsePartitions(s string, n int) (Partitions, error) {
 
 // Check reports whether the range lies inside n partitions.
 func (p Partitions) Check(n int) error {
-	if p.First < 0 || p.Last < p.First || p.Last >= n {
+	switch {
+	case p.Last < p.First:
+		return fmt.Errorf("partitions %s: the first (%d) is after the last (%d); give FIRST-LAST with FIRST <= LAST", p, p.First, p.Last)
+	case p.First < 0 || p.Last >= n:
 		return fmt.Errorf("partitions %s not inside 0-%d", p, n-1)
 	}
 	return nil

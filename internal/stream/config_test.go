@@ -133,3 +133,20 @@ func TestConnectOptionsValidate(t *testing.T) {
 		}
 	}
 }
+
+// TestParsePartitionsMessages (issue 9 item 10): a reversed range says so
+// (the old message was "not inside 0-15").
+func TestParsePartitionsMessages(t *testing.T) {
+	for in, want := range map[string]string{
+		"9-3":  "the first (9) is after the last (3)",
+		"3-16": "not inside 0-15",
+		"x":    "want N or FIRST-LAST",
+	} {
+		if _, err := ParsePartitions(in, 16); err == nil || !strings.Contains(err.Error(), want) {
+			t.Errorf("%q: %v, want %q", in, err, want)
+		}
+	}
+	if p, err := ParsePartitions("3-9", 16); err != nil || p != (Partitions{3, 9}) {
+		t.Errorf("3-9: %v %v", p, err)
+	}
+}

@@ -161,6 +161,12 @@ func startWorker(t testing.TB, b *bus, dir string, pcfg pipeline.Config, cfg Con
 	if err != nil {
 		t.Fatal(err)
 	}
+	return runWorker(t, w, dir, pcfg)
+}
+
+// runWorker runs w over a new store in dir on a goroutine.
+func runWorker(t testing.TB, w *Worker, dir string, pcfg pipeline.Config) *liveWorker {
+	t.Helper()
 	st := openStore(t, dir)
 	p, err := pipeline.New(st, w.ProcessorConfig(pcfg), w.DeadLetters(), nil)
 	if err != nil {

@@ -358,6 +358,19 @@ func (s *sender) publishQueued() error {
 			}
 			continue
 		}
+		if s.sent > s.head {
+			// The newest publication already failed (a stream without a
+			// leader answers at once): an older one may be lost too, so
+			// publish nothing newer before going back to the oldest.
+			select {
+			case err := <-s.queue[s.sent-1].f.Err():
+				if err := s.rewind(err); err != nil {
+					return err
+				}
+				continue
+			default:
+			}
+		}
 		o := &s.queue[s.sent]
 		f, err := s.js.PublishMsgAsync(o.msg, jetstream.WithMsgID(o.id))
 		if err != nil {

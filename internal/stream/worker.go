@@ -59,6 +59,8 @@ type Worker struct {
 	lag          atomic.Uint64 // messages not yet delivered, as last reported
 	lastDelivery atomic.Int64  // Unix ns of the last delivery
 	stalled      atomic.Bool
+	diskLow      atomic.Bool
+	disk         *state.DiskGuard
 	repositions  atomic.Int64
 	started      atomic.Bool
 
@@ -141,6 +143,7 @@ type Health struct {
 	Lag          uint64    // messages matching the filter not yet delivered, as last reported by the server
 	LastDelivery time.Time // zero before the first delivery
 	Stalled      bool      // no delivery for WatchdogTimeout although messages are pending
+	DiskLow      bool      // not fetching: free disk space below the reserve
 	Repositions  int64     // consumer repositionings after a delivery gap or stall
 	Committed    uint64    // committed checkpoint: every stream sequence below is applied
 	Acked        uint64    // highest stream sequence acknowledged
@@ -151,6 +154,7 @@ func (w *Worker) Health() Health {
 	h := Health{
 		Lag:         w.lag.Load(),
 		Stalled:     w.stalled.Load(),
+		DiskLow:     w.diskLow.Load(),
 		Repositions: w.repositions.Load(),
 		Committed:   w.committed.Load(),
 		Acked:       w.acked.Load(),
@@ -529,6 +533,13 @@ func (f *fetcher) Chunks() <-chan *pipeline.Chunk { return f.out }
 func (f *fetcher) Err() error                     { return f.err }
 func (f *fetcher) Release(c *pipeline.Chunk)      { f.pool.Put(c) }
 
+// diskPoll is how often a worker paused by a low disk looks again.
+const diskPoll = time.Second
+
+// SetDiskGuard makes the worker stop fetching while g reports the disk
+// low (state.DiskGuard), and resume when space returns. Call before Run.
+func (w *Worker) SetDiskGuard(g *state.DiskGuard) { w.disk = g }
+
 // fetcher pulls batches, checks delivery order, decodes and forwards: the
 // pipeline.InputSource of a live worker.
 type fetcher struct {
@@ -553,6 +564,20 @@ func (f *fetcher) run(ctx context.Context) {
 	defer close(f.out)
 	backoff := 50 * time.Millisecond
 	for ctx.Err() == nil {
+		if f.w.disk != nil {
+			// Full disks are a state: stop fetching below the reserve (what
+			// was read is committed as usual), go on when space returns.
+			if _, err := f.w.disk.Check(); err != nil {
+				if !f.w.diskLow.Swap(true) {
+					f.w.log.Error("disk space low: not fetching until space returns", "err", err)
+				}
+				sleep(ctx, diskPoll)
+				continue
+			}
+			if f.w.diskLow.Swap(false) {
+				f.w.log.Info("disk space back: fetching again")
+			}
+		}
 		batch, err := f.cons.Fetch(f.w.cfg.FetchBatch, jetstream.FetchMaxWait(f.w.cfg.FetchWait))
 		var n int
 		var gap bool

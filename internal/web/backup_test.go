@@ -4,7 +4,10 @@ import (
 	"io"
 	"net/http"
 	"net/http/httptest"
+	"strings"
 	"testing"
+
+	"github.com/touchledger/touchledger/internal/query"
 )
 
 // TestBackupAlwaysNeedsAToken (issue 9 item 9): /admin/backup answers 403
@@ -41,5 +44,25 @@ func TestBackupAlwaysNeedsAToken(t *testing.T) {
 				t.Errorf("%s: %d %q, want %d (copy %v)", c.path, rec.Code, rec.Body.String(), c.want, c.wantBodyCopy)
 			}
 		})
+	}
+}
+
+// TestZeroTimeNotIgnored (issue 9 item 10): from=0001-01-01 is an error,
+// not "from not given" (it parsed to the zero time, which the querier read
+// as absent); every surface uses the same parser (query.ParseRequest).
+func TestZeroTimeNotIgnored(t *testing.T) {
+	for _, from := range []string{"0001-01-01", "0001-01-01T00:00:00Z", "1969-12-31", "2100-01-01"} {
+		if _, err := query.ParseRequest(query.KindFunnel, map[string]string{"from": from}); err == nil || !strings.Contains(err.Error(), "outside the event times") {
+			t.Errorf("from=%s: %v, want an error", from, err)
+		}
+	}
+	rec := httptest.NewRecorder()
+	NewHandler(Options{OpenQuerier: func() (*query.Querier, error) { return nil, query.ErrNoData }}).
+		ServeHTTP(rec, httptest.NewRequest(http.MethodGet, "/api/funnel?from=0001-01-01", nil))
+	if rec.Code != http.StatusBadRequest {
+		t.Errorf("/api/funnel?from=0001-01-01: %d %s, want 400", rec.Code, rec.Body.String())
+	}
+	if r, err := query.ParseRequest(query.KindFunnel, map[string]string{"from": "1970-01-01", "to": "2099-12-31"}); err != nil || r.Window.From.Year() != 1970 {
+		t.Errorf("the edges: %v %v", r.Window, err)
 	}
 }

@@ -304,7 +304,7 @@ func TestAPIBadParameters(t *testing.T) {
 		{"/api/credit?model=markov&order=9", "order: must be 1 to 4"},
 		{"/api/credit?model=markov&order=4", "order: must be 1 to 3 (markov_max_order)"},
 		{"/api/credit?model=linear&order=2", "order: applies to the markov model only"},
-		{"/api/credit?model=linear&from=0001-01-01&to=2026-10-01", "from: 0001-01-01T00:00:00Z is before 1970"},
+		{"/api/credit?model=linear&from=0001-01-01&to=2026-10-01", `from: "0001-01-01" is outside the event times`},
 		{"/api/credit?model=markov&order=two", "not a whole number"},
 		{"/api/credit?model=linear&last=abc", "last"},
 		{"/api/credit?model=linear&last=0s", "last: must be positive"},
