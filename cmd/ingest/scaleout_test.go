@@ -224,15 +224,29 @@ func TestScaleOutCluster(t *testing.T) {
 		return n
 	}
 	lo, hi := startWorker("0-7"), startWorker("8-15")
+	// Both consume before the leader is stopped: a consumer being created
+	// during the leader change is another matter (see the issue 9 report).
+	for _, w := range []*worker{lo, hi} {
+		for deadline := time.Now().Add(30 * time.Second); !strings.Contains(w.out.String(), "msg=consuming"); {
+			if time.Now().After(deadline) {
+				t.Fatalf("worker %s did not start consuming:\n%s", w.parts, w.out.String())
+			}
+			time.Sleep(20 * time.Millisecond)
+		}
+	}
 
 	// Publish through a connection to the two other nodes; a third of the
 	// way in, shut the stream's leader down (issue 9 item 11). The
-	// acknowledgements of the messages in flight are lost with it; Send
-	// publishes again from the oldest unacknowledged message in order, so
-	// nothing lands behind later events (which, hours later in the demo's
-	// accelerated event time, would be beyond the lateness), and the new
-	// leader drops what it already holds by message id: nothing is lost or
-	// doubled.
+	// acknowledgement in flight is lost with it; Send publishes again from
+	// the oldest unacknowledged message, and the new leader drops what it
+	// already holds by message id: nothing is lost or doubled, nothing
+	// lands behind later events (which, hours later in the demo's
+	// accelerated event time, would be beyond the lateness). One message
+	// in flight: with Send's default window of 2048, the cluster itself
+	// stored messages in flight across the leader change out of their
+	// publication order (measured: about 1 000 of 11 798 behind later ones,
+	// every one stored once) — harmless in real time, where they lie within
+	// the lateness, but not with the demo's accelerated clock.
 	var victim, keep []*clusterNode
 	for _, n := range nodes {
 		if n.name == info.Cluster.Leader {
@@ -257,7 +271,7 @@ func TestScaleOutCluster(t *testing.T) {
 	var stats stream.SendStats
 	go func() {
 		var err error
-		stats, err = stream.Send(ctx, pjs, bytes.NewReader(input), stream.SendOptions{AckTimeout: 5 * time.Second, RetryFor: time.Minute})
+		stats, err = stream.Send(ctx, pjs, bytes.NewReader(input), stream.SendOptions{MaxInFlight: 1, AckTimeout: 5 * time.Second, RetryFor: time.Minute})
 		sent <- err
 	}()
 	third := uint64(gen.Events / 3)
@@ -302,6 +316,42 @@ func TestScaleOutCluster(t *testing.T) {
 	}
 	if after.Cluster == nil || after.Cluster.Leader == victim[0].name || after.State.Msgs != uint64(gen.Events) {
 		t.Errorf("after the leader loss: leader %v, %d messages; want a new leader and the %d events once", after.Cluster, after.State.Msgs, gen.Events)
+	}
+	// The stream holds the input once and in input order.
+	order := map[string]int{}
+	for i, m := range regexp.MustCompile(`"id":"([^"]+)"`).FindAllSubmatch(input, -1) {
+		order[string(m[1])] = i
+	}
+	oc, err := evs.OrderedConsumer(ctx, jetstream.OrderedConsumerConfig{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	prev, inversions, firstInv := -1, 0, ""
+	for read := 0; read < gen.Events; {
+		batch, err := oc.Fetch(1000, jetstream.FetchMaxWait(5*time.Second))
+		if err != nil {
+			t.Fatal(err)
+		}
+		n := 0
+		for m := range batch.Messages() {
+			n++
+			i := order[m.Headers().Get("Nats-Msg-Id")]
+			if i < prev {
+				inversions++
+				if firstInv == "" {
+					md, _ := m.Metadata()
+					firstInv = fmt.Sprintf("line %d at stream sequence %d after line %d", i, md.Sequence.Stream, prev)
+				}
+			}
+			prev = max(prev, i)
+		}
+		if n == 0 {
+			t.Fatalf("read %d of %d stream messages", read, gen.Events)
+		}
+		read += n
+	}
+	if inversions > 0 {
+		t.Errorf("the stream holds %d messages behind later input lines (first: %s)", inversions, firstInv)
 	}
 	t.Logf("leader %s shut down at stream sequence %d of %d, new leader %s; send: %+v", victim[0].name, stoppedAt.State.LastSeq, gen.Events, after.Cluster.Leader, stats)
 
